@@ -25,6 +25,12 @@ def main() -> None:
 # Each module defines its command(s) with @main.command(); keep this list sorted by workflow.
 COMMAND_MODULES = (
     "cmd_models",
+    "cmd_process",
+    "cmd_keys",
+    "cmd_verify",
+    "cmd_inspect",
+    "cmd_export",
+    "cmd_frameproof",
 )
 
 for _name in COMMAND_MODULES:

@@ -1,0 +1,65 @@
+"""`redact export`: a package's skeletons as per-track NumPy arrays (.npz) or COCO keypoint results JSON."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import click
+
+from redact.cli import main
+from redact.cli.common import echo_json, library_errors
+
+EXPORT_CAUTION = (
+    "The exported skeletons are pseudonymised personal data, not anonymous data: people can be "
+    "re-identified from their gait and body proportions (GaitPT, arXiv 2308.10623), even after "
+    "de-identification options. Share them only as your data-protection officer allows."
+)
+
+
+def _frame_size(ctx, param, value: str | None):
+    if value is None:
+        return None
+    try:
+        w, h = (int(v) for v in value.lower().split("x"))
+    except ValueError:
+        raise click.BadParameter("expected WIDTHxHEIGHT in pixels, e.g. 1920x1080") from None
+    if w <= 0 or h <= 0:
+        raise click.BadParameter("width and height must be positive")
+    return w, h
+
+
+@main.command("export", help=f"""Export a package's skeletons for research tools.
+
+npz: per track, track_<id>_keypoints [T,17,3] float32 (x, y, confidence), _frames [T], _times [T],
+_boxes, _scores, _observed; load with numpy.load. coco: COCO keypoint results JSON plus a
+ground-truth-style file of images and the COCO-17 category (--gt-out), loadable with pycocotools.
+
+{EXPORT_CAUTION}""", epilog="""\b
+Examples:
+  redact export out/package --format npz --out tracks.npz
+  redact export out/package --format coco --out results.json --frame-size 1920x1080""")
+@click.argument("package", type=click.Path(exists=True, file_okay=False, path_type=Path))
+@click.option("--format", "fmt", required=True, type=click.Choice(["npz", "coco"]), help="Output format.")
+@click.option("--out", required=True, type=click.Path(dir_okay=False, path_type=Path), help="File to write.")
+@click.option("--gt-out", type=click.Path(dir_okay=False, path_type=Path), default=None,
+              help="coco only: images/categories file (default: OUT with .gt.json).")
+@click.option("--frame-size", callback=_frame_size, default=None, metavar="WxH",
+              help="coco only: frame width and height recorded on each image.")
+@click.option("--force", is_flag=True, help="Overwrite existing output files.")
+@click.option("--json", "as_json", is_flag=True, help="Print the summary as one JSON document.")
+@library_errors
+def export_cmd(package: Path, fmt: str, out: Path, gt_out: Path | None, frame_size, force: bool,
+               as_json: bool) -> None:
+    from redact.errors import InputError
+    from redact.export import export_package
+
+    if fmt == "npz" and (gt_out is not None or frame_size is not None):
+        raise InputError("--gt-out and --frame-size only apply to --format coco")
+    summary = export_package(package, fmt, out, gt_out=gt_out, frame_size=frame_size, force=force)
+    click.echo(f"caution: {EXPORT_CAUTION}", err=True)
+    if as_json:
+        echo_json(summary)
+        return
+    files = summary["out"] + (f" and {summary['gt_out']}" if "gt_out" in summary else "")
+    count = f"{summary['tracks']} tracks" if fmt == "npz" else f"{summary['results']} poses"
+    click.echo(f"wrote {files}: {summary['rows']} frames, {count}, units {summary['units']}")

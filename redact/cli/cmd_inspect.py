@@ -1,0 +1,52 @@
+"""`redact inspect`: a readable summary of a package (source, model, key, counts, flagged ranges)."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import click
+
+from redact.cli import main
+from redact.cli.common import echo_json, library_errors
+
+
+@main.command("inspect", epilog="""\b
+Example:
+  redact inspect out/package --key steward.public.pem
+  redact inspect out/package.tar --json
+
+Without --key the summary is read from an UNVERIFIED package: run `redact verify` before relying
+on it. Skeleton data is pseudonymised, not anonymous: handle the package as personal data.""")
+@click.argument("package", type=click.Path(exists=True, path_type=Path))
+@click.option("--key", "keys", multiple=True, type=click.Path(exists=True, dir_okay=False, path_type=Path),
+              help="Trusted public key (PEM); when given, the package is verified first.")
+@click.option("--json", "as_json", is_flag=True, help="Print one JSON document on stdout.")
+@library_errors
+def inspect(package: Path, keys: tuple[Path, ...], as_json: bool) -> None:
+    """Summarise PACKAGE: source, model, key id, counts of frames/people/tracks, flagged ranges."""
+    from redact.package import summarise_package
+    from redact.signing import load_public_key
+
+    trusted = [load_public_key(k) for k in keys]
+    summary = summarise_package(package, trusted or None)
+    if as_json:
+        echo_json(summary)
+        return
+    if not summary["verified"]:
+        click.echo("warning: NOT VERIFIED (no --key given); run `redact verify` before relying on this", err=True)
+    src, model, counts = summary["source"], summary["model"], summary["counts"]
+    click.echo(f"package:  {package} ({'verified' if summary['verified'] else 'unverified'})")
+    click.echo(f"key id:   {summary['key_id']}")
+    click.echo(f"source:   {src.get('name')}  {src.get('bytes')} bytes  {src.get('frames')} frames  "
+               f"{src.get('width')}x{src.get('height')}  {src.get('fps')} fps")
+    click.echo(f"          sha256 {src.get('sha256')}")
+    click.echo(f"model:    {model.get('id')}  licence {model.get('licence')}")
+    click.echo(f"created:  {summary['created']}  by {summary['tool']}")
+    click.echo(f"counts:   {counts['frames']} frame rows, {counts['people']} person detections, "
+               f"{counts['tracks']} tracks, {counts['fault_frames']} fault frames")
+    click.echo(f"log:      {summary['log_entries']} entries")
+    flagged = summary["flagged"]
+    click.echo(f"flagged for review: {len(flagged)} range(s)")
+    for r in flagged:
+        click.echo(f"  frames {r.get('start')}–{r.get('end')}: {r.get('reason', '')}")
+    click.echo("Skeleton data is pseudonymised, not anonymous; flagged frames need human review.", err=True)

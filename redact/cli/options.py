@@ -1,0 +1,81 @@
+"""Shared click options of the commands that run the pipeline (process, demo), as decorators."""
+
+from __future__ import annotations
+
+import functools
+from datetime import date
+
+import click
+
+from redact.pipeline import ProcessSettings
+from redact.pose import PoseSettings
+from redact.quality import ReviewRules
+from redact.regions import RegionSettings
+from redact.render import STYLES, RenderSettings
+from redact.track import TrackerConfig
+
+
+def pipeline_options(fn):
+    """Options that shape the redaction, turned into one ProcessSettings passed as `settings`."""
+
+    @click.option("--style", type=click.Choice(STYLES), default="figure", show_default=True,
+                  help="How people are obscured: figure = grey region with a stick figure drawn on it; "
+                       "blur; pixelate; fill = plain grey; plate = the empty scene (people masked out) "
+                       "with figures.")
+    @click.option("--figures/--no-figures", default=False,
+                  help="Also draw stick figures over blur, pixelate or fill.")
+    @click.option("--margin", type=click.FloatRange(0, 2), default=0.15, show_default=True,
+                  help="Extra margin around each person, as a fraction of the box size.")
+    @click.option("--coast-seconds", type=click.FloatRange(0, 60), default=1.5, show_default=True,
+                  help="How long a person whose detection is lost stays obscured along the predicted path.")
+    @click.option("--score-threshold", type=click.FloatRange(0.01, 0.99), default=0.25, show_default=True,
+                  help="Minimum person score of the detector. Lower finds more people and more false alarms.")
+    @click.option("--input-size", type=click.IntRange(160, 1920), default=640, show_default=True,
+                  help="Long side of the model input in pixels (a multiple of 32). Larger finds smaller people, slower.")
+    @click.option("--threads", type=click.IntRange(1, 256), default=None, help="CPU threads for the model (default: all cores).")
+    @click.option("--crf", type=click.IntRange(0, 51), default=20, show_default=True, help="H.264 quality of the redacted video (lower is better).")
+    @click.option("--keep-audio", is_flag=True, help="Carry the source's audio into the redacted video (dropped by default: voices identify people).")
+    @click.option("--archive", is_flag=True, help="Write the package as one .tar instead of a folder.")
+    @functools.wraps(fn)
+    def wrapper(*args, style, figures, margin, coast_seconds, score_threshold, input_size, threads, crf,
+                keep_audio, archive, **kwargs):
+        if input_size % 32:
+            raise click.BadParameter(f"must be a multiple of 32, got {input_size}", param_hint="--input-size")
+        kwargs["settings"] = ProcessSettings(
+            pose=PoseSettings(input_long_side=input_size, score_threshold=score_threshold),
+            tracker=TrackerConfig(),
+            render=RenderSettings(style=style, figure=figures, regions=RegionSettings(base_margin=margin)),
+            review=ReviewRules(),
+            coast_seconds=coast_seconds, keep_audio=keep_audio, archive=archive, threads=threads, crf=crf,
+        )
+        return fn(*args, **kwargs)
+
+    return wrapper
+
+
+def disclosure_options(fn):
+    """Who receives the material and why: recorded in the transform log and the signed statement."""
+
+    @click.option("--recipient", default=None, help="Person or body receiving the material (recorded).")
+    @click.option("--organisation", default=None, help="The recipient's organisation (recorded).")
+    @click.option("--purpose", default=None, help="Why it is disclosed (recorded).")
+    @click.option("--request-ref", default=None, help="Reference of the request being answered (recorded).")
+    @click.option("--disclosure-date", default=None, help="Date of disclosure, YYYY-MM-DD (default: today when any disclosure field is given).")
+    @functools.wraps(fn)
+    def wrapper(*args, recipient, organisation, purpose, request_ref, disclosure_date, **kwargs):
+        fields = {"recipient": recipient, "organisation": organisation, "purpose": purpose,
+                  "request_reference": request_ref}
+        if disclosure_date is not None:
+            try:
+                date.fromisoformat(disclosure_date)
+            except ValueError:
+                raise click.BadParameter(f"expected YYYY-MM-DD, got {disclosure_date!r}",
+                                         param_hint="--disclosure-date") from None
+        if any(v is not None for v in fields.values()) or disclosure_date is not None:
+            fields["date"] = disclosure_date or date.today().isoformat()
+            kwargs["disclosure"] = {k: v for k, v in fields.items() if v is not None}
+        else:
+            kwargs["disclosure"] = None
+        return fn(*args, **kwargs)
+
+    return wrapper

@@ -1,0 +1,238 @@
+"""Research export of a package's skeletons.jsonl: per-track NumPy arrays (.npz) or COCO keypoint results.
+
+The exported data are what the package holds: pseudonymised personal data, not anonymous
+(GDPR Art. 4(5), Recital 26); people can be re-identified from skeletons (GaitPT, arXiv 2308.10623).
+
+.npz (numpy.load, no pickles): `track_ids` [K] int64, `frames` [F] int64 and `times` [F] float64
+of every row, `fault` [F] bool (rows fully obscured because processing failed), `units` (0-d str:
+"pixels", "frame" or "track"), and per track id: `track_<id>_keypoints` [T,17,3] float32
+(x, y, confidence), `track_<id>_frames` [T] int64, `track_<id>_times` [T] float64 seconds,
+`track_<id>_boxes` [T,4] float32 x1,y1,x2,y2, `track_<id>_scores` [T] float32,
+`track_<id>_observed` [T] bool, and `track_<id>_centre` [T,2] float32 when the rows carry it.
+Memory grows with the number of person-frames (about 230 bytes each) since .npz needs whole arrays.
+
+COCO (cocodataset.org keypoint results format, streamed): a list of {image_id (= frame index),
+category_id: 1, keypoints: 51 numbers x, y, score per COCO-17 keypoint, score, track_id}, and a
+ground-truth-style file with the images (one per row, no pixels) and the person category with the
+COCO-17 keypoint names and 1-based skeleton, so pycocotools' COCO.loadRes accepts the results.
+COCO keypoints are pixels: rows in frame or track units are refused for this format.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import secrets
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Iterable, Iterator
+
+import numpy as np
+
+from redact.errors import InputError, OutputError, PackageError
+from redact.privacy import decode_row_extras
+from redact.rows import decode_row
+from redact.skeleton import KEYPOINT_NAMES, LINKS_1BASED
+
+FORMATS = ("npz", "coco")
+SKELETONS = "skeletons.jsonl"
+
+
+def read_package_lines(package: str | Path) -> Iterator[bytes]:
+    """The lines of PACKAGE/skeletons.jsonl. (To be replaced by the verified package reader.)"""
+    path = Path(package) / SKELETONS
+    if not Path(package).is_dir():
+        raise InputError(f"{package}: not a package directory")
+    if path.is_symlink() or not path.is_file():
+        raise PackageError(f"{path}: missing or not a regular file")
+
+    def lines() -> Iterator[bytes]:
+        with open(path, "rb") as f:
+            yield from f
+
+    return lines()
+
+
+@dataclass(frozen=True)
+class _Row:
+    frame: int
+    t: float
+    status: str
+    units: str
+    ids: np.ndarray
+    boxes: np.ndarray
+    scores: np.ndarray
+    keypoints: np.ndarray
+    observed: np.ndarray
+    centres: np.ndarray | None
+
+
+def _rows(lines: Iterable[bytes]) -> Iterator[_Row]:
+    """Parse and check rows: strict decoding, one units value for the whole file, unique frame indices."""
+    units = None
+    seen: set[int] = set()
+    for n, line in enumerate(lines, 1):
+        try:
+            r = decode_row(line)
+            ex = decode_row_extras(line)
+        except (ValueError, KeyError, TypeError) as e:
+            raise PackageError(f"{SKELETONS} line {n}: {e}") from None
+        if units is None:
+            units = ex.units
+        elif ex.units != units:
+            raise PackageError(f"{SKELETONS} line {n}: units {ex.units!r} differ from {units!r} of line 1")
+        if r.frame in seen:
+            raise PackageError(f"{SKELETONS} line {n}: frame {r.frame} appears twice")
+        seen.add(r.frame)
+        tr = r.tracks
+        yield _Row(r.frame, r.t, r.status, ex.units, tr.ids, tr.boxes, tr.scores, tr.keypoints, tr.observed,
+                   ex.centres)
+
+
+def _temp_for(out: Path) -> Path:
+    return out.with_name(f".{out.name}.tmp-{secrets.token_hex(4)}")
+
+
+def _check_out(out: Path, force: bool) -> None:
+    if out.exists() and not force:
+        raise OutputError(f"{out}: already exists; choose another name or allow overwriting")
+    if not out.parent.is_dir():
+        raise OutputError(f"{out.parent}: no such directory")
+
+
+def export_npz(lines: Iterable[bytes], out: str | Path, force: bool = False) -> dict:
+    """Write the per-track arrays to out (.npz, compressed) via a temporary name; return a summary."""
+    out = Path(out)
+    _check_out(out, force)
+    frames, times, fault = [], [], []
+    per: dict[int, dict[str, list]] = {}
+    units = "pixels"
+    has_centre = None
+    for r in _rows(lines):
+        units = r.units
+        frames.append(r.frame)
+        times.append(r.t)
+        fault.append(r.status != "ok")
+        if has_centre is None and len(r.ids):
+            has_centre = r.centres is not None
+        for i, tid in enumerate(r.ids.tolist()):
+            d = per.setdefault(int(tid), {"keypoints": [], "frames": [], "times": [], "boxes": [], "scores": [],
+                                          "observed": [], "centre": []})
+            d["keypoints"].append(r.keypoints[i])
+            d["frames"].append(r.frame)
+            d["times"].append(r.t)
+            d["boxes"].append(r.boxes[i])
+            d["scores"].append(r.scores[i])
+            d["observed"].append(r.observed[i])
+            if r.centres is not None:
+                d["centre"].append(r.centres[i])
+    arrays: dict[str, np.ndarray] = {
+        "track_ids": np.array(sorted(per), np.int64),
+        "frames": np.array(frames, np.int64),
+        "times": np.array(times, np.float64),
+        "fault": np.array(fault, bool),
+        "units": np.array(units),
+    }
+    person_frames = 0
+    for tid in sorted(per):
+        d = per[tid]
+        person_frames += len(d["frames"])
+        arrays[f"track_{tid}_keypoints"] = np.array(d["keypoints"], np.float32).reshape(-1, 17, 3)
+        arrays[f"track_{tid}_frames"] = np.array(d["frames"], np.int64)
+        arrays[f"track_{tid}_times"] = np.array(d["times"], np.float64)
+        arrays[f"track_{tid}_boxes"] = np.array(d["boxes"], np.float32).reshape(-1, 4)
+        arrays[f"track_{tid}_scores"] = np.array(d["scores"], np.float32)
+        arrays[f"track_{tid}_observed"] = np.array(d["observed"], bool)
+        if d["centre"]:
+            arrays[f"track_{tid}_centre"] = np.array(d["centre"], np.float32).reshape(-1, 2)
+    tmp = _temp_for(out)
+    try:
+        with open(tmp, "wb") as f:  # a file object, so numpy does not append ".npz" to the name
+            np.savez_compressed(f, **arrays)
+        os.replace(tmp, out)
+    except BaseException:
+        tmp.unlink(missing_ok=True)
+        raise
+    return {"format": "npz", "out": str(out), "rows": len(frames), "tracks": len(per),
+            "person_frames": person_frames, "units": units}
+
+
+def _num(v) -> str:
+    """Shortest text that reads back as the same float32 (the row's decimal text when it was written so)."""
+    s = str(np.float32(v))
+    return "0" if s in ("0.0", "-0.0") else s
+
+
+def coco_categories() -> list[dict]:
+    """The COCO person category with the COCO-17 keypoint names and the published 1-based skeleton."""
+    return [{"id": 1, "name": "person", "supercategory": "person", "keypoints": list(KEYPOINT_NAMES),
+             "skeleton": [list(link) for link in LINKS_1BASED]}]
+
+
+def export_coco(lines: Iterable[bytes], out: str | Path, gt_out: str | Path | None = None,
+                frame_size: tuple[int, int] | None = None, force: bool = False) -> dict:
+    """Write COCO keypoint results to out and the images/categories file to gt_out (default:
+    out with ".gt.json" in place of ".json"), both streamed via temporary names; return a summary."""
+    out = Path(out)
+    gt_out = Path(gt_out) if gt_out is not None else default_gt_path(out)
+    if gt_out.resolve() == out.resolve():
+        raise OutputError("the results and ground-truth files must differ")
+    _check_out(out, force)
+    _check_out(gt_out, force)
+    tmp, tmp_gt = _temp_for(out), _temp_for(gt_out)
+    n_rows = n_people = 0
+    try:
+        with open(tmp, "w", encoding="utf-8", newline="\n") as f, \
+                open(tmp_gt, "w", encoding="utf-8", newline="\n") as g:
+            f.write("[")
+            g.write('{"info":{"description":"images of a skeleton package (no pixels); '
+                    'pseudonymised personal data"},"images":[')
+            for r in _rows(lines):
+                if r.units != "pixels":
+                    raise InputError(f"format: COCO keypoints are pixels but this package has units={r.units!r}; "
+                                     "export it as npz")
+                image = {"id": r.frame, "file_name": f"frame_{r.frame:08d}", "frame": r.frame, "t": r.t}
+                if frame_size is not None:
+                    image["width"], image["height"] = int(frame_size[0]), int(frame_size[1])
+                g.write(("," if n_rows else "") + json.dumps(image, allow_nan=False))
+                n_rows += 1
+                for i in range(len(r.ids)):
+                    kp = ",".join(_num(v) for v in r.keypoints[i].reshape(-1))
+                    f.write(("," if n_people else "") +
+                            f'\n{{"image_id":{r.frame},"category_id":1,"keypoints":[{kp}],'
+                            f'"score":{_num(r.scores[i])},"track_id":{int(r.ids[i])}}}')
+                    n_people += 1
+            f.write("\n]\n")
+            g.write('],"annotations":[],"categories":' + json.dumps(coco_categories()) + "}\n")
+        os.replace(tmp_gt, gt_out)
+        os.replace(tmp, out)
+    except BaseException:
+        tmp.unlink(missing_ok=True)
+        tmp_gt.unlink(missing_ok=True)
+        raise
+    return {"format": "coco", "out": str(out), "gt_out": str(gt_out), "rows": n_rows, "results": n_people,
+            "units": "pixels"}
+
+
+def default_gt_path(out: str | Path) -> Path:
+    """results.json → results.gt.json (next to the results file)."""
+    out = Path(out)
+    stem = out.name[:-5] if out.name.lower().endswith(".json") else out.name
+    return out.with_name(stem + ".gt.json")
+
+
+def export_package(package: str | Path, fmt: str, out: str | Path, gt_out: str | Path | None = None,
+                   frame_size: tuple[int, int] | None = None, force: bool = False) -> dict:
+    """Export PACKAGE's skeletons as fmt ("npz" or "coco") to out; return a summary dict."""
+    if fmt not in FORMATS:
+        raise InputError(f"format: {fmt!r} is not one of {', '.join(FORMATS)}")
+    out = Path(out)
+    pkg = Path(package).resolve()
+    if pkg in out.resolve().parents or (gt_out is not None and pkg in Path(gt_out).resolve().parents):
+        raise OutputError(f"{out}: would write inside the package; choose a place outside it")
+    lines = read_package_lines(package)
+    if fmt == "npz":
+        if gt_out is not None:
+            raise InputError("gt_out: only applies to the coco format")
+        return export_npz(lines, out, force)
+    return export_coco(lines, out, gt_out, frame_size, force)

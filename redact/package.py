@@ -1,0 +1,475 @@
+"""The skeleton-only package: layout, writing (sign, then atomic rename) and safe reading.
+
+A package is a directory or one uncompressed .tar holding exactly the files named as
+`package-file` subjects of its signed in-toto Statement, plus `envelope.json`. The redacted video
+is a subject too (role `redacted-video`) but lives outside the package; it is checked only when
+the verifier is given it. Subject encoding (in-toto ResourceDescriptor):
+
+    {"name": "skeletons.jsonl", "digest": {"sha256": "<hex>"},
+     "annotations": {"role": "package-file", "bytes": 1234}}
+    {"name": "redacted.mp4", "digest": {"sha256": "<hex>"},
+     "annotations": {"role": "redacted-video", "bytes": 56789}}
+
+Reading never extracts and never follows links: directory entries are opened with O_NOFOLLOW,
+tar members are read in place; names that are absolute, contain `..`, `.`, empty segments,
+backslashes, NUL or control characters are refused. Skeleton data is pseudonymised, not anonymous.
+"""
+
+from __future__ import annotations
+
+import io
+import os
+import shutil
+import stat
+import tarfile
+from contextlib import contextmanager
+from pathlib import Path
+from typing import BinaryIO, Callable, Iterator
+
+from redact import jsonio, merkle, signing
+from redact.errors import OutputError, PackageError
+from redact.hashing import sha256_file, sha256_stream
+from redact.log import TransformLog
+
+PREDICATE_TYPE = "https://redact.invalid/skeleton-package/v1"  # ours; .invalid is reserved (RFC 6761)
+ENVELOPE = "envelope.json"
+SKELETONS = "skeletons.jsonl"
+TRACKS = "tracks.json"
+QUALITY = "quality.jsonl"
+REVIEW = "review.json"
+FRAMES = "frames.sha256"
+LOG = "log.jsonl"
+ROLE_FILE = "package-file"
+ROLE_VIDEO = "redacted-video"
+ENVELOPE_LIMIT = 16 * 1024 * 1024  # bytes; common practice
+MAX_ENTRIES = 10_000  # files in a package; common practice
+MAX_DEPTH = 8  # directory levels; common practice
+
+
+def check_name(name: str) -> str | None:
+    """Why a relative package path is unsafe, or None when it is a plain relative POSIX path."""
+    if not isinstance(name, str) or not name:
+        return "empty name"
+    if "\x00" in name:
+        return "NUL in name"
+    if "\\" in name:
+        return "backslash in name"
+    if any(ord(c) < 0x20 or ord(c) == 0x7F for c in name):
+        return "control character in name"
+    if name.startswith("/") or (len(name) > 1 and name[1] == ":"):
+        return "absolute path"
+    parts = name.split("/")
+    if ".." in parts:
+        return "'..' in path (points outside the package)"
+    if any(p in ("", ".") for p in parts):
+        return "empty or '.' path segment"
+    if len(parts) > MAX_DEPTH or len(name.encode("utf-8", "surrogateescape")) > 255:
+        return "path too deep or too long"
+    return None
+
+
+class PackageReader:
+    """Read-only view of a package: `files` maps safe relative names to sizes; `problems` lists unsafe entries."""
+
+    kind = "package"
+
+    def __init__(self) -> None:
+        self.files: dict[str, int] = {}
+        self.problems: list[str] = []
+
+    def open(self, name: str) -> BinaryIO:
+        raise NotImplementedError
+
+    def read(self, name: str, limit: int) -> bytes:
+        """The whole file, refusing one larger than `limit` before reading it."""
+        size = self.files[name]
+        if size > limit:
+            raise PackageError(f"{name}: {size} bytes exceeds the limit of {limit} bytes")
+        with self.open(name) as f:
+            data = f.read(limit + 1)
+        if len(data) != size:
+            raise PackageError(f"{name}: changed while being read")
+        return data
+
+    def close(self) -> None:
+        pass
+
+
+class DirectoryReader(PackageReader):
+    """A package directory, walked without following symlinks."""
+
+    kind = "directory"
+
+    def __init__(self, root: Path) -> None:
+        super().__init__()
+        self.root = Path(root)
+        self._walk(self.root, "", 0)
+
+    def _walk(self, path: Path, prefix: str, depth: int) -> None:
+        try:
+            entries = sorted(os.scandir(path), key=lambda e: e.name)
+        except OSError as e:
+            self.problems.append(f"{prefix or '.'}: cannot list directory ({e.strerror})")
+            return
+        if depth and not entries:
+            self.problems.append(f"{prefix.rstrip('/')}: unexpected empty directory")
+        for e in entries:
+            name = prefix + e.name
+            if len(self.files) + len(self.problems) > MAX_ENTRIES:
+                self.problems.append(f"more than {MAX_ENTRIES} entries; stopped listing")
+                return
+            why = check_name(name)
+            if why:
+                self.problems.append(f"{name!r}: unsafe name ({why})")
+                continue
+            st = e.stat(follow_symlinks=False)
+            if stat.S_ISLNK(st.st_mode):
+                self.problems.append(f"{name}: symlink (links are not allowed in a package)")
+            elif stat.S_ISDIR(st.st_mode):
+                if depth + 1 >= MAX_DEPTH:
+                    self.problems.append(f"{name}: directories nested too deep")
+                else:
+                    self._walk(Path(e.path), name + "/", depth + 1)
+            elif stat.S_ISREG(st.st_mode):
+                self.files[name] = st.st_size
+            else:
+                self.problems.append(f"{name}: not a regular file (device, FIFO or socket)")
+
+    def open(self, name: str) -> BinaryIO:
+        if name not in self.files:
+            raise PackageError(f"{name}: not a file of this package")
+        fd = os.open(self.root / name, os.O_RDONLY | getattr(os, "O_NOFOLLOW", 0))
+        f = os.fdopen(fd, "rb")
+        if not stat.S_ISREG(os.fstat(fd).st_mode):
+            f.close()
+            raise PackageError(f"{name}: not a regular file")
+        return f
+
+
+class TarReader(PackageReader):
+    """An uncompressed .tar package, read in place: members are never extracted to disk."""
+
+    kind = "tar"
+
+    def __init__(self, path: Path) -> None:
+        super().__init__()
+        self.path = Path(path)
+        self._members: dict[str, tarfile.TarInfo] = {}
+        try:
+            self._tar = tarfile.open(self.path, mode="r:")
+        except (tarfile.TarError, OSError) as e:
+            raise PackageError(f"{self.path.name}: not a readable uncompressed tar archive ({e})") from None
+        file_size = self.path.stat().st_size
+        try:
+            for m in self._tar:
+                if m.offset_data + max(m.size, 0) > file_size:
+                    self.problems.append(f"tar member {m.name!r}: extends past the end of the archive (truncated)")
+                    continue
+                if len(self._members) + len(self.problems) > MAX_ENTRIES:
+                    self.problems.append(f"more than {MAX_ENTRIES} members; stopped listing")
+                    break
+                self._member(m)
+        except (tarfile.TarError, OSError, UnicodeError) as e:
+            self.problems.append(f"{self.path.name}: damaged tar archive ({e})")
+
+    def _member(self, m: tarfile.TarInfo) -> None:
+        name = m.name
+        why = check_name(name)
+        if why:
+            self.problems.append(f"tar member {name!r}: unsafe name ({why})")
+            return
+        if m.issym() or m.islnk():
+            self.problems.append(f"tar member {name}: link (links are not allowed in a package)")
+        elif m.isdir():
+            self.problems.append(f"tar member {name}: directory entries are not part of the package format")
+        elif m.ischr() or m.isblk() or m.isfifo():
+            self.problems.append(f"tar member {name}: device or FIFO")
+        elif not m.isreg() or m.issparse():
+            self.problems.append(f"tar member {name}: not a plain regular file")
+        elif name in self._members:
+            self.problems.append(f"tar member {name}: appears more than once")
+        else:
+            self._members[name] = m
+            self.files[name] = m.size
+
+    def open(self, name: str) -> BinaryIO:
+        f = self._tar.extractfile(self._members[name])
+        if f is None:
+            raise PackageError(f"{name}: cannot be read from the archive")
+        return f
+
+    def canonical_problem(self) -> str | None:
+        """None when the .tar is byte-identical to the archive this tool writes for these members.
+
+        Tar headers (times, owners, modes) and padding are not covered by the signature; requiring
+        the canonical archive makes every byte of the .tar tamper-evident.
+        """
+        if self.problems:
+            return None
+        sink = _HashSink()
+        names = sorted(self.files)
+        _write_tar(sink, [(n, self.files[n], (lambda n=n: self.open(n))) for n in names])
+        with open(self.path, "rb") as f:
+            digest, _ = sha256_stream(f)
+        if digest != sink.hexdigest():
+            return f"{self.path.name}: not byte-identical to the archive this tool writes for these files " \
+                   "(tar headers, order or padding were altered)"
+        return None
+
+    def close(self) -> None:
+        self._tar.close()
+
+
+class _HashSink(io.RawIOBase):
+    """A write-only stream that only hashes what is written."""
+
+    def __init__(self) -> None:
+        import hashlib
+
+        self._h = hashlib.sha256()
+
+    def writable(self) -> bool:
+        return True
+
+    def write(self, b) -> int:
+        self._h.update(b)
+        return len(b)
+
+    def hexdigest(self) -> str:
+        return self._h.hexdigest()
+
+
+def _write_tar(out: BinaryIO, items: list[tuple[str, int, Callable[[], BinaryIO]]]) -> None:
+    """Deterministic USTAR stream: given order, mtime 0, owner 0/0 without names, mode 0644."""
+    with tarfile.open(fileobj=out, mode="w|", format=tarfile.USTAR_FORMAT) as tar:
+        for name, size, opener in items:
+            info = tarfile.TarInfo(name)
+            info.size, info.mtime, info.mode = size, 0, 0o644
+            info.uid = info.gid = 0
+            info.uname = info.gname = ""
+            with opener() as f:
+                tar.addfile(info, f)
+
+
+@contextmanager
+def open_package(path: Path) -> Iterator[PackageReader]:
+    """A reader for a package directory or .tar; PackageError when it is neither."""
+    path = Path(path)
+    if path.is_dir():
+        reader: PackageReader = DirectoryReader(path)
+    elif path.is_file():
+        reader = TarReader(path)
+    else:
+        raise PackageError(f"{path}: no such package (expected a directory or a .tar file)")
+    try:
+        yield reader
+    finally:
+        reader.close()
+
+
+def _subject(name: str, digest: str, size: int, role: str) -> dict:
+    return {"name": name, "digest": {"sha256": digest}, "annotations": {"role": role, "bytes": size}}
+
+
+def _check_predicate(predicate: dict) -> dict:
+    if not isinstance(predicate, dict):
+        raise OutputError("the predicate must be a JSON object")
+    if "log" in predicate:
+        raise OutputError("the predicate must not contain 'log'; write_package adds the log head")
+    try:
+        return jsonio.loads_object(jsonio.dumps(predicate), "predicate")  # a deep, JSON-clean copy
+    except (TypeError, ValueError, PackageError) as e:
+        raise OutputError(f"the predicate is not strict JSON: {e}") from None
+
+
+def _frames_root(staging: Path, files: dict[str, int], predicate: dict) -> None:
+    """Fill in or cross-check source.frames_root from frames.sha256 (RFC 6962 root)."""
+    if FRAMES not in files:
+        return
+    with open(staging / FRAMES, "rb") as f:
+        try:
+            digests = merkle.parse_frame_digests(line for _, line in jsonio.iter_lines(f, FRAMES, 1024))
+        except PackageError as e:
+            raise OutputError(f"staging {e}") from None
+    root = merkle.root(digests).hex()
+    source = predicate.setdefault("source", {})
+    if not isinstance(source, dict):
+        raise OutputError("predicate source must be an object")
+    if source.get("frames_root") not in (None, root):
+        raise OutputError("predicate source.frames_root does not match frames.sha256")
+    source["frames_root"] = root
+
+
+def write_package(staging_dir: Path, final_path: Path, predicate: dict, signer: signing.Signer,
+                  video: Path | None = None, archive: bool = False) -> bytes:
+    """Sign the files of `staging_dir` and move them into place as a package; returns the payload bytes.
+
+    The staging directory is consumed: renamed to `final_path`, or written as a .tar to
+    `final_path` (through a temporary name) and then removed. The signing step is logged before
+    the statement is built, so the signed log head covers it.
+    """
+    staging, final = Path(staging_dir), Path(final_path)
+    if staging.is_symlink() or not staging.is_dir():
+        raise OutputError(f"staging directory {staging} does not exist")
+    if os.path.lexists(final):
+        raise OutputError(f"{final} already exists; refusing to overwrite a package")
+    if not final.parent.is_dir():
+        raise OutputError(f"directory {final.parent} does not exist")
+    if os.path.lexists(staging / ENVELOPE):
+        raise OutputError(f"staging directory already holds {ENVELOPE}")
+    predicate = _check_predicate(predicate)
+    first = DirectoryReader(staging)
+    if first.problems:
+        raise OutputError(f"staging directory: {first.problems[0]}")
+    video_name = None
+    if video is not None:
+        video = Path(video)
+        video_name = video.name
+        if check_name(video_name) or video_name in first.files or video_name in (ENVELOPE, LOG):
+            raise OutputError(f"video name {video_name!r} clashes with a package file or is unsafe")
+        if not video.is_file():
+            raise OutputError(f"redacted video {video} does not exist")
+
+    _frames_root(staging, first.files, predicate)
+    log = TransformLog(staging / LOG)
+    log.append("sign", key_id=signer.key_id, predicate_type=PREDICATE_TYPE,
+               files=sorted(set(first.files) | {LOG}), video=video_name, archive=bool(archive))
+    reader = DirectoryReader(staging)  # again: the log has grown
+    subjects = []
+    for name in sorted(reader.files):
+        digest, size = sha256_file(staging / name)
+        subjects.append(_subject(name, digest, size, ROLE_FILE))
+    if video is not None:
+        digest, size = sha256_file(video)
+        subjects.append(_subject(video_name, digest, size, ROLE_VIDEO))
+    predicate["log"] = {"head": log.head, "entries": log.entries}
+    statement = signing.build_statement(subjects, PREDICATE_TYPE, predicate)
+    payload = jsonio.dumps(statement)
+    envelope = signing.sign_envelope(payload, signing.PAYLOAD_TYPE, signer)
+    _atomic_write(staging / ENVELOPE, signing.envelope_bytes(envelope))
+
+    if archive:
+        names = sorted(set(reader.files) | {ENVELOPE})
+        sizes = {n: (staging / n).stat().st_size for n in names}
+        tmp = final.with_name(f".{final.name}.tmp-{os.getpid()}")
+        try:
+            with open(tmp, "xb") as out:
+                _write_tar(out, [(n, sizes[n], (lambda n=n: open(staging / n, "rb"))) for n in names])
+                out.flush()
+                os.fsync(out.fileno())
+            _rename_new(tmp, final)
+        finally:
+            if os.path.lexists(tmp):
+                os.unlink(tmp)
+        shutil.rmtree(staging)
+    else:
+        _rename_new(staging, final)
+    return payload
+
+
+def _atomic_write(path: Path, data: bytes) -> None:
+    tmp = path.with_name(f".{path.name}.tmp-{os.getpid()}")
+    with open(tmp, "xb") as f:
+        f.write(data)
+        f.flush()
+        os.fsync(f.fileno())
+    os.replace(tmp, path)
+
+
+def _rename_new(src: Path, dst: Path) -> None:
+    if os.path.lexists(dst):
+        raise OutputError(f"{dst} appeared while writing; refusing to overwrite it")
+    try:
+        os.rename(src, dst)
+    except OSError as e:
+        raise OutputError(f"cannot move the package into place at {dst}: {e.strerror or e} "
+                          "(the staging directory must be on the same file system)") from None
+
+
+def read_statement_unverified(reader: PackageReader) -> tuple[dict, str | None]:
+    """The statement and keyid hint of a package WITHOUT checking the signature (for `inspect`)."""
+    if ENVELOPE not in reader.files:
+        raise PackageError(f"{ENVELOPE} is missing")
+    env = jsonio.loads_object(reader.read(ENVELOPE, ENVELOPE_LIMIT), ENVELOPE, ENVELOPE_LIMIT)
+    try:
+        payload = signing.b64decode_any(env.get("payload"))
+    except ValueError as e:
+        raise PackageError(f"{ENVELOPE}: payload is not base64 ({e})") from None
+    sigs = env.get("signatures")
+    hint = sigs[0].get("keyid") if isinstance(sigs, list) and sigs and isinstance(sigs[0], dict) else None
+    return jsonio.loads_object(payload, "statement", ENVELOPE_LIMIT), hint if isinstance(hint, str) else None
+
+
+REVIEW_LIMIT = 64 * 1024 * 1024  # bytes; common practice
+
+
+def _flagged_ranges(doc) -> list[dict]:
+    """Flagged ranges from review.json: a list, or an object with a "ranges" (or "flagged") list of
+    {"frame_start"|"start": frame, "frame_end"|"end": frame, "reasons": [str] | "reason": str}."""
+    items = doc.get("ranges", doc.get("flagged", [])) if isinstance(doc, dict) else doc
+    out = []
+    for r in items if isinstance(items, list) else []:
+        if not isinstance(r, dict):
+            continue
+        reason = r.get("reason")
+        if reason is None and isinstance(r.get("reasons"), list):
+            reason = ", ".join(str(x) for x in r["reasons"])
+        start = r.get("frame_start", r.get("start"))
+        end = r.get("frame_end", r.get("end"))
+        out.append({"start": start, "end": end, "reason": "" if reason is None else str(reason)})
+    return out
+
+
+def summarise_package(path: Path, trusted_keys: list | None = None) -> dict:
+    """A summary of a package for people: source, model, key id, counts, flagged ranges.
+
+    With trusted keys the package is verified first (VerificationFailed on any problem); without,
+    the summary is marked unverified. Every file is still parsed strictly.
+    """
+    if trusted_keys:
+        from redact.verify import verify_package
+
+        result = verify_package(path, trusted_keys)
+        statement, key_id, verified = result.statement, result.key_id, True
+    else:
+        with open_package(path) as reader:
+            statement, key_id = read_statement_unverified(reader)
+        verified = False
+    predicate = statement.get("predicate") if isinstance(statement.get("predicate"), dict) else {}
+
+    def obj(key: str) -> dict:
+        v = predicate.get(key)
+        return v if isinstance(v, dict) else {}
+
+    frames = people = faults = 0
+    ids: set = set()
+    flagged: list[dict] = []
+    files: list[str] = []
+    with open_package(path) as reader:
+        files = sorted(reader.files)
+        if SKELETONS in reader.files:
+            with reader.open(SKELETONS) as f:
+                for n, line in jsonio.iter_lines(f, SKELETONS):
+                    row = jsonio.loads_object(line, f"{SKELETONS} line {n}")
+                    frames += 1
+                    faults += row.get("status") == "fault"
+                    persons = row.get("people") if isinstance(row.get("people"), list) else []
+                    people += len(persons)
+                    ids.update(p.get("id") for p in persons if isinstance(p, dict) and isinstance(p.get("id"), int))
+        if REVIEW in reader.files:
+            flagged = _flagged_ranges(jsonio.loads(reader.read(REVIEW, REVIEW_LIMIT), REVIEW, REVIEW_LIMIT))
+    tool = obj("tool")
+    return {
+        "verified": verified,
+        "key_id": key_id,
+        "source": obj("source"),
+        "model": obj("model"),
+        "privacy": obj("privacy"),
+        "tool": f"{tool.get('name', '?')} {tool.get('version', '?')}",
+        "created": predicate.get("created"),
+        "log_entries": obj("log").get("entries"),
+        "counts": {"frames": frames, "people": people, "tracks": len(ids), "fault_frames": faults},
+        "flagged": flagged,
+        "files": files,
+        "caution": "Skeleton data is pseudonymised, not anonymous.",
+    }

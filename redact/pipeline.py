@@ -1,0 +1,369 @@
+"""The main job in one streaming pass: decode → pose → track → obscure → encode, plus the package.
+
+`process_video` writes `OUT/redacted.mp4` and `OUT/package/` (or `OUT/package.tar`), both staged
+under a hidden temporary folder in OUT and renamed into place only when everything succeeded:
+the package last, so its presence means the run completed. Failing closed: a frame whose
+inference, tracking or rendering raises is written fully obscured, logged and flagged; a model
+that fails its hash check stops the run before any output exists.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import shutil
+import tempfile
+import time
+from collections import deque
+from dataclasses import asdict, dataclass, field, replace
+from pathlib import Path
+from typing import Callable
+
+import numpy as np
+
+from redact import __version__, package, rows
+from redact.errors import InputError, OutputError, RedactError
+from redact.log import TransformLog, utc_now
+from redact.pose import PoseEstimator, PoseSettings
+from redact.quality import QualityMonitor, ReviewRange, ReviewRules, encode_quality_line, review_document
+from redact.records import Poses, Tracks
+from redact.render import RenderSettings, obscure_all, obscurer_for, render_frame
+from redact.track import Tracker, TrackerConfig
+
+VIDEO_NAME = "redacted.mp4"
+PACKAGE_NAME = "package"
+
+
+@dataclass(frozen=True)
+class ProcessSettings:
+    """Every setting of a run; all of it is recorded in the log and the signed predicate.
+
+    coast_seconds: how long a person whose detection is lost stays obscured along its predicted
+    path (converted to frames with the source frame rate). lookback_seconds: when a person is first
+    detected, the frames of this long before are obscured where the person stood, since people
+    entering the picture (from an edge, out of shadow) are usually visible before they are
+    detected; output is delayed by that many frames. crf: x264 quality (lower = better).
+    """
+
+    pose: PoseSettings = field(default_factory=PoseSettings)
+    tracker: TrackerConfig = field(default_factory=TrackerConfig)
+    render: RenderSettings = field(default_factory=RenderSettings)
+    review: ReviewRules = field(default_factory=ReviewRules)
+    coast_seconds: float = 1.5
+    lookback_seconds: float = 0.5
+    keep_audio: bool = False
+    archive: bool = False
+    threads: int | None = None
+    crf: int = 20
+    plate_samples: int = 32
+
+    def __post_init__(self) -> None:
+        if not 0 <= self.coast_seconds <= 60:
+            raise InputError(f"coast time must be between 0 and 60 seconds, got {self.coast_seconds}")
+        if not 0 <= self.lookback_seconds <= 10:
+            raise InputError(f"look-back time must be between 0 and 10 seconds, got {self.lookback_seconds}")
+        if not 0 <= self.crf <= 51:
+            raise InputError(f"crf must be between 0 and 51, got {self.crf}")
+
+    def record(self) -> dict:
+        """The settings as plain JSON values (for the log and the predicate)."""
+        d = asdict(self)
+        d.pop("threads")  # affects speed only, never the output
+        return d
+
+
+@dataclass(frozen=True)
+class ProcessResult:
+    """What a run produced and where; review ranges are where a person must look first."""
+
+    out_dir: Path
+    video: Path
+    package: Path
+    frames: int
+    tracks: int
+    fault_frames: tuple[int, ...]
+    review: tuple[ReviewRange, ...]
+    seconds: float
+    stopped_early: str | None
+    key_id: str
+    source_sha256: str
+
+    @property
+    def fps(self) -> float:
+        return self.frames / self.seconds if self.seconds > 0 else 0.0
+
+
+def frame_ranges(indices: list[int]) -> list[list[int]]:
+    """Sorted frame indices → inclusive [start, end] ranges."""
+    out: list[list[int]] = []
+    for i in indices:
+        if out and i == out[-1][1] + 1:
+            out[-1][1] = i
+        else:
+            out.append([i, i])
+    return out
+
+
+def _check_paths(source: Path, out_dir: Path, archive: bool) -> tuple[Path, Path]:
+    video = out_dir / VIDEO_NAME
+    pkg = out_dir / (PACKAGE_NAME + (".tar" if archive else ""))
+    src = source.resolve()
+    for target in (out_dir, video, pkg):
+        if target.resolve() == src:
+            raise OutputError(f"output {target} would overwrite the input; choose another --out")
+    if out_dir.exists() and not out_dir.is_dir():
+        raise OutputError(f"--out {out_dir} exists and is not a directory")
+    for target in (video, pkg):
+        if os.path.lexists(target):
+            raise OutputError(f"{target} already exists; choose a new --out (outputs are never overwritten)")
+    return video, pkg
+
+
+class _Stats:
+    """Counts for the transform log: what was obscured where, and which frames failed."""
+
+    def __init__(self) -> None:
+        self.with_people: list[int] = []
+        self.person_frames = 0
+        self.predicted_frames = 0
+        self.faults: list[int] = []
+        self.fault_reasons: dict[str, int] = {}
+        self.lookback_frames: list[int] = []
+        self.new_tracks = 0
+
+    def people(self, index: int, tracks: Tracks) -> None:
+        if len(tracks):
+            self.with_people.append(index)
+            self.person_frames += len(tracks)
+            self.predicted_frames += int((~tracks.observed).sum())
+
+    def fault(self, index: int, reason: str) -> None:
+        self.faults.append(index)
+        self.fault_reasons[reason] = self.fault_reasons.get(reason, 0) + 1
+
+
+class _Lookback:
+    """Holds the last few rendered frames back from the encoder; a newly detected person is
+    obscured in them too, where they first appeared (box with the tracker's widest margin)."""
+
+    def __init__(self, frames: int, obscurer, region_settings, margin: float):
+        self.pending: deque = deque()
+        self.frames = frames
+        self.obscurer = obscurer
+        self.region_settings = region_settings
+        self.margin = margin
+        self.seen: set[int] = set()
+
+    def push(self, index: int, pts: int, image: np.ndarray, tracks: Tracks | None, stats: "_Stats"):
+        """Add one rendered frame; returns the frames now old enough to encode, oldest first."""
+        from redact.regions import person_region
+
+        if tracks is not None and len(tracks):
+            new = [k for k, i in enumerate(tracks.ids.tolist()) if i not in self.seen]
+            self.seen.update(tracks.ids.tolist())
+            stats.new_tracks += len(new)
+            for k in new:
+                region = person_region(tracks.boxes[k], tracks.keypoints[k], self.margin, image.shape,
+                                       self.region_settings)
+                if region.empty:
+                    continue
+                mask = region.mask(image.shape)
+                for item in self.pending:
+                    item[2] = self.obscurer.apply(item[2], mask, region.size)
+                    stats.lookback_frames.append(item[0])
+        self.pending.append([index, pts, image])
+        out = []
+        while len(self.pending) > self.frames:
+            out.append(self.pending.popleft())
+        return out
+
+    def flush(self):
+        out = list(self.pending)
+        self.pending.clear()
+        return out
+
+
+def _build_plate(source: Path, estimator: PoseEstimator, settings: ProcessSettings):
+    """A background plate from a first pass: sampled frames, people masked out (see redact.plate)."""
+    from redact.plate import PlateBuilder
+    from redact.regions import people_mask
+    from redact.video import VideoReader
+
+    builder = PlateBuilder(max_samples=settings.plate_samples)
+    with VideoReader(source, hash_file=False) as reader:
+        for frame in reader.frames():
+            if builder.wants_next():
+                poses = estimator.estimate(frame.image)
+                n = len(poses)
+                as_tracks = Tracks(np.arange(n), poses.boxes, poses.scores, poses.keypoints,
+                                   np.ones(n, bool), np.zeros(n, np.int32), np.full(n, 0.3, np.float32))
+                mask = people_mask(as_tracks, frame.image.shape, settings.render.regions)
+            else:
+                mask = np.zeros(frame.image.shape[:2], bool)
+            builder.add(frame.image, mask)
+    return builder.build()
+
+
+def process_video(source: str | Path, out_dir: str | Path, signer, settings: ProcessSettings = ProcessSettings(),
+                  disclosure: dict | None = None, privacy=None,
+                  progress: Callable[[int, int], None] | None = None,
+                  estimator: PoseEstimator | None = None) -> ProcessResult:
+    """Redact every person in `source` and write the signed skeleton package; see the module doc.
+
+    signer: a redact.signing.Signer. disclosure: optional recipient/organisation/purpose/date/
+    request_reference. privacy: optional redact.privacy.PrivacyOptions applied to the skeleton
+    rows. progress(frames_done, frames_expected) is called after each frame. estimator: a
+    PoseEstimator to use instead of the bundled default (tests inject faults this way).
+    """
+    from redact.models import get_model
+    from redact.video import VideoReader, VideoWriter, copy_audio, probe
+
+    started = time.perf_counter()
+    source, out_dir = Path(source), Path(out_dir)
+    info = probe(source)  # InputError for missing / not a video / zero frames
+    video_final, pkg_final = _check_paths(source, out_dir, settings.archive)
+    entry = get_model(task="pose")
+    if estimator is None:
+        estimator = PoseEstimator.default(settings.pose, settings.threads)  # hash check before any output
+    fps = float(info.fps) if info.fps else 25.0
+    tracker_cfg = replace(settings.tracker, max_coast_frames=int(round(settings.coast_seconds * fps)))
+    plate = _build_plate(source, estimator, settings) if settings.render.style == "plate" else None
+    obscurer = obscurer_for(settings.render, plate)
+
+    try:
+        out_dir.mkdir(parents=True, exist_ok=True)
+        staging = Path(tempfile.mkdtemp(prefix=".redact-partial-", dir=out_dir))
+    except OSError as e:
+        raise OutputError(f"cannot write to {out_dir}: {e.strerror or e}") from None
+    try:
+        return _run(source, info, out_dir, staging, video_final, pkg_final, signer, settings, tracker_cfg,
+                    estimator, entry, obscurer, plate, disclosure, privacy, progress, started,
+                    VideoReader, VideoWriter, copy_audio)
+    finally:
+        shutil.rmtree(staging, ignore_errors=True)
+
+
+def _run(source, info, out_dir, staging, video_final, pkg_final, signer, settings, tracker_cfg, estimator,
+         entry, obscurer, plate, disclosure, privacy, progress, started, VideoReader, VideoWriter, copy_audio):
+    pkg_dir = staging / PACKAGE_NAME
+    pkg_dir.mkdir()
+    video_tmp = staging / VIDEO_NAME
+    log = TransformLog(pkg_dir / package.LOG)
+    log.append("probe", **{k: v for k, v in info.as_dict().items() if k != "path"}, name=source.name)
+    log.append("model", id=entry.id, sha256=entry.sha256, licence=entry.licence, runtime="onnxruntime-cpu")
+    log.append("detection", **asdict(settings.pose))
+    log.append("tracking", **asdict(tracker_cfg), coast_seconds=settings.coast_seconds)
+    if plate is not None:
+        log.append("plate", samples=settings.plate_samples, valid_fraction=round(float(plate.valid.mean()), 4))
+
+    tracker = Tracker(tracker_cfg)
+    monitor = QualityMonitor(settings.review)
+    stats = _Stats()
+    lookback = _Lookback(int(round(settings.lookback_seconds * float(info.fps or 25))), obscurer,
+                         settings.render.regions, tracker_cfg.max_margin)
+    digests: list[bytes] = []
+    with VideoReader(source, threads=0) as reader, \
+            VideoWriter(video_tmp, info.width, info.height, info.time_base, info.fps, crf=settings.crf) as writer, \
+            open(pkg_dir / package.SKELETONS, "wb") as skel, \
+            open(pkg_dir / package.QUALITY, "wb") as qual, \
+            open(pkg_dir / package.FRAMES, "wb") as frames_out:
+        for frame in reader.frames():
+            tracks: Tracks | None
+            try:
+                if frame.corrupt:
+                    raise RedactError("the decoder reported damaged data in this frame")
+                poses = estimator.estimate(frame.image)
+                tracks = tracker.update(poses, frame.t, frame.index)
+                out = render_frame(frame.image, tracks, settings.render, plate=plate, obscurer=obscurer)
+                status = rows.STATUS_OK
+                stats.people(frame.index, tracks)
+            except Exception as e:  # fail closed: whatever went wrong, this frame shows nobody
+                out = obscure_all(frame.image)
+                tracks, status = None, rows.STATUS_FAULT
+                stats.fault(frame.index, type(e).__name__)
+            pts = frame.pts if frame.pts is not None else frame.index
+            for _, ready_pts, ready in lookback.push(frame.index, pts, out, tracks, stats):
+                writer.write(ready, ready_pts)
+            skel.write(rows.encode_row(frame.index, frame.pts, frame.t, tracks or Tracks.empty(), status))
+            qual.write(encode_quality_line(monitor.observe(frame.index, frame.t, frame.image, tracks,
+                                                           fault=tracks is None)))
+            frames_out.write(frame.digest.hex().encode() + b"\n")
+            digests.append(frame.digest)
+            if progress is not None:
+                progress(frame.index + 1, info.frames)
+        for _, ready_pts, ready in lookback.flush():
+            writer.write(ready, ready_pts)
+    n_frames = len(digests)
+    log.append("decode", frames=n_frames, sha256=reader.sha256, bytes=reader.bytes,
+               stopped_early=reader.stopped_early, corrupt_frames=reader.corrupt_frames)
+    log.append("redaction", style=settings.render.style, figures=settings.render.draws_figures,
+               regions=asdict(settings.render.regions), frames_with_people=frame_ranges(stats.with_people),
+               person_frames=stats.person_frames, predicted_person_frames=stats.predicted_frames,
+               lookback_seconds=settings.lookback_seconds, new_people=stats.new_tracks,
+               lookback_frames=frame_ranges(sorted(set(stats.lookback_frames))))
+    if stats.faults:
+        log.append("fault", frames=frame_ranges(stats.faults), count=len(stats.faults),
+                   reasons=stats.fault_reasons, action="frame fully obscured")
+    review = monitor.ranges()
+    (pkg_dir / package.REVIEW).write_bytes(review_document(review, settings.review, n_frames))
+    log.append("review", rules=asdict(settings.review), ranges=len(review), flagged_frames=monitor.flagged)
+
+    summaries = tracker.summary()
+    (pkg_dir / package.TRACKS).write_bytes(_tracks_json(summaries))
+    if privacy is not None:
+        _apply_privacy(pkg_dir, privacy, info, log)
+
+    if settings.keep_audio and info.has_audio:
+        with_audio = staging / ("audio-" + VIDEO_NAME)
+        copy_audio(video_tmp, source, with_audio)
+        os.replace(with_audio, video_tmp)
+    log.append("encode", codec="h264", encoder="libx264", crf=settings.crf, frames=writer.frames_written,
+               audio="kept" if (settings.keep_audio and info.has_audio) else ("dropped" if info.has_audio else "none"),
+               container_metadata="not copied", source_metadata_keys=list(info.metadata_keys))
+    if disclosure:
+        log.disclosure(**disclosure)
+
+    predicate = {
+        "source": {"name": source.name, "sha256": reader.sha256, "bytes": reader.bytes,
+                   "duration": round(info.duration, 6), "fps": f"{info.fps.numerator}/{info.fps.denominator}",
+                   "frames": n_frames, "width": info.width, "height": info.height,
+                   "stopped_early": reader.stopped_early},
+        "model": {"id": entry.id, "sha256": entry.sha256, "licence": entry.licence},
+        "parameters": settings.record(),
+        "privacy": privacy.to_record() if privacy is not None else {"options": "none"},
+        "disclosure": dict(disclosure or {}),
+        "review": {"ranges": len(review), "flagged_frames": monitor.flagged},
+        "faults": {"frames": len(stats.faults)},
+        "tool": {"name": "redact", "version": __version__},
+        "created": utc_now(),
+    }
+    signed = staging / "signed"
+    package.write_package(pkg_dir, signed, predicate, signer, video=video_tmp, archive=settings.archive)
+    os.rename(video_tmp, video_final)
+    os.rename(signed, pkg_final)  # last: a package in place means the run completed
+    return ProcessResult(out_dir, video_final, pkg_final, n_frames, len(summaries), tuple(stats.faults),
+                         tuple(review), time.perf_counter() - started, reader.stopped_early,
+                         signer.key_id, reader.sha256)
+
+
+def _tracks_json(summaries) -> bytes:
+    """tracks.json: one object per track id, deterministic bytes."""
+    doc = {"tracks": [{k: (round(v, 6) if isinstance(v, float) else v) for k, v in asdict(s).items()}
+                      for s in summaries]}
+    return (json.dumps(doc, sort_keys=True, separators=(",", ":"), allow_nan=False) + "\n").encode()
+
+
+def _apply_privacy(pkg_dir: Path, privacy, info, log: TransformLog) -> None:
+    """Rewrite skeletons.jsonl through the de-identification options (see redact.privacy)."""
+    from redact.privacy import apply_privacy
+
+    src = pkg_dir / package.SKELETONS
+    tmp = pkg_dir / ".skeletons.tmp"
+    with open(src, "rb") as f, open(tmp, "wb") as out:
+        result = apply_privacy(rows.read_rows(f), privacy, (info.width, info.height), float(info.fps))
+        summary = {}
+        for line in result:
+            out.write(line)
+        summary = getattr(result, "summary", summary)
+    os.replace(tmp, src)
+    log.append("privacy", **privacy.to_record(), summary=summary)

@@ -1,0 +1,257 @@
+"""Per-frame quality measures and the frames a person should review.
+
+Automated redaction misses people in poor light, at small scale, under blur and occlusion.
+This module measures each frame cheaply (on a grey image downscaled to at most ANALYSIS_SIDE
+pixels) and flags frames by named rules; flagged frames are merged into time ranges for review.
+The flags are a guide to where to look first, not a clearance: a person must still review the
+whole redacted video before disclosure.
+
+Measures: luma by ITU-R BT.601 (Y' = 0.299 R' + 0.587 G' + 0.114 B', on 8-bit code values),
+its mean and standard deviation; sharpness = variance of the Laplacian (common practice; from
+memory: Pech-Pacheco et al., "Diatom autofocusing in brightfield microscopy", ICPR 2000);
+people, observed and coasting track counts; mean keypoint confidence of observed people; the
+drop of the observed count below its recent maximum.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+from collections import deque
+from dataclasses import asdict, dataclass
+
+import cv2
+import numpy as np
+
+from redact.errors import RedactError
+from redact.records import Tracks
+
+#: ITU-R BT.601 luma coefficients for R', G', B'.
+BT601 = (0.299, 0.587, 0.114)
+#: Longer side of the grey image the measures are computed on.
+ANALYSIS_SIDE = 320
+
+REASONS: tuple[str, ...] = ("blurred", "coasting", "count_drop", "dark", "fault", "low_confidence", "low_contrast")
+
+
+@dataclass(frozen=True)
+class ReviewRules:
+    """Named thresholds that flag a frame for review. Defaults are common practice; all settable.
+
+    dark: luma mean (0..255) below this. low_contrast: luma standard deviation below this.
+    blurred: variance of the Laplacian (on the ANALYSIS_SIDE grey image) below this.
+    low_confidence: mean keypoint confidence of observed people below this.
+    coasting: flag frames with at least this many tracks coasting (0 = never).
+    count_drop: flag when the observed count is this many below its maximum over the previous
+    drop_window frames (0 = never). fault: flag frames that failed and were fully obscured.
+    merge_gap: flagged frames at most this many frames apart join one range.
+    """
+
+    dark: float = 40.0
+    low_contrast: float = 10.0
+    blurred: float = 20.0
+    low_confidence: float = 0.35
+    coasting: int = 1
+    count_drop: int = 1
+    drop_window: int = 5
+    fault: bool = True
+    merge_gap: int = 5
+
+    def __post_init__(self) -> None:
+        for name in ("dark", "low_contrast", "blurred", "low_confidence"):
+            v = getattr(self, name)
+            if not (isinstance(v, (int, float)) and math.isfinite(v) and v >= 0):
+                raise RedactError(f"review rule {name} must be a finite number >= 0, got {v!r}")
+        for name in ("coasting", "count_drop", "drop_window", "merge_gap"):
+            v = getattr(self, name)
+            if not (isinstance(v, int) and v >= 0):
+                raise RedactError(f"review rule {name} must be a whole number >= 0, got {v!r}")
+
+
+@dataclass(frozen=True)
+class FrameQuality:
+    """The measures of one frame. Image measures are None for a frame without a usable image;
+    mean_conf is None when nobody was observed. reasons: sorted names of the rules it broke."""
+
+    frame: int
+    t: float
+    luma_mean: float | None
+    luma_std: float | None
+    sharpness: float | None
+    people: int
+    observed: int
+    predicted: int
+    mean_conf: float | None
+    count_drop: int
+    fault: bool = False
+    reasons: tuple[str, ...] = ()
+
+
+@dataclass(frozen=True)
+class ReviewRange:
+    """Frames frame_start..frame_end (inclusive), times t_start..t_end, with the sorted reasons."""
+
+    frame_start: int
+    frame_end: int
+    t_start: float
+    t_end: float
+    reasons: tuple[str, ...]
+
+
+def luma(image: np.ndarray) -> np.ndarray:
+    """BT.601 luma [H, W] float32 of an RGB image [H, W, 3] (8-bit code values stay 0..255)."""
+    a = np.asarray(image)
+    if a.ndim != 3 or a.shape[2] != 3:
+        raise RedactError(f"quality: expected an RGB image [H,W,3], got {list(a.shape)}")
+    a = a.astype(np.float32)
+    return a[:, :, 0] * BT601[0] + a[:, :, 1] * BT601[1] + a[:, :, 2] * BT601[2]
+
+
+def analysis_grey(image: np.ndarray, side: int = ANALYSIS_SIDE) -> np.ndarray:
+    """BT.601 luma [h, w] float32 of the image area-downscaled so its longer side is at most side."""
+    a = np.asarray(image)
+    if a.ndim != 3 or a.shape[2] != 3 or a.dtype != np.uint8:
+        raise RedactError(f"quality: expected an RGB uint8 image [H,W,3], got {list(a.shape)} {a.dtype}")
+    h, w = a.shape[:2]
+    if max(h, w) > side:
+        s = side / max(h, w)
+        a = cv2.resize(a, (max(1, round(w * s)), max(1, round(h * s))), interpolation=cv2.INTER_AREA)
+    return luma(a)
+
+
+def sharpness(grey: np.ndarray) -> float:
+    """Variance of the Laplacian (3×3 aperture) of a grey image [h, w] (common practice)."""
+    lap = cv2.Laplacian(np.asarray(grey, np.float32), cv2.CV_32F, ksize=1, borderType=cv2.BORDER_REFLECT)
+    return float(lap.astype(np.float64).var())
+
+
+class QualityMonitor:
+    """Streams frames in order: `observe` measures and flags each; `ranges` merges the flags."""
+
+    def __init__(self, rules: ReviewRules = ReviewRules()):
+        self.rules = rules
+        self._recent: deque[int] = deque(maxlen=max(1, rules.drop_window))
+        self._last_frame: int | None = None
+        self._ranges: list[ReviewRange] = []
+        self._open: list | None = None  # [frame_start, frame_end, t_start, t_end, set(reasons)]
+        self.frames = 0
+        self.flagged = 0
+
+    def observe(self, frame: int, t: float, image: np.ndarray | None, tracks: Tracks | None,
+                fault: bool = False) -> FrameQuality:
+        """Measure one frame. image [H,W,3] uint8 RGB, or None when it could not be decoded;
+        tracks None for a frame whose processing failed. Frames must come in increasing order."""
+        if self._last_frame is not None and frame <= self._last_frame:
+            raise RedactError(f"quality: frame {frame} came after frame {self._last_frame}; frames must increase")
+        self._last_frame = frame
+        r = self.rules
+        lm = ls = sh = None
+        usable = image is not None
+        if usable and fault:  # a failed frame may carry a damaged image: measure it only if it is sound
+            a = np.asarray(image)
+            usable = a.ndim == 3 and a.shape[2] == 3 and a.dtype == np.uint8 and a.size > 0
+        if usable:
+            g = analysis_grey(image)
+            lm, ls, sh = float(g.mean(dtype=np.float64)), float(g.std(dtype=np.float64)), sharpness(g)
+        people = observed = predicted = 0
+        mean_conf = None
+        if tracks is not None:
+            people = len(tracks)
+            observed = int(tracks.observed.sum())
+            predicted = people - observed
+            if observed:
+                mean_conf = float(tracks.keypoints[tracks.observed, :, 2].astype(np.float64).mean())
+        # A frame without tracks (failed) says nothing about the count: no drop, not remembered.
+        drop = max(0, max(self._recent) - observed) if (self._recent and tracks is not None) else 0
+        if tracks is not None:
+            self._recent.append(observed)
+
+        reasons = []
+        if lm is not None and lm < r.dark:
+            reasons.append("dark")
+        if ls is not None and ls < r.low_contrast:
+            reasons.append("low_contrast")
+        if sh is not None and sh < r.blurred:
+            reasons.append("blurred")
+        if mean_conf is not None and mean_conf < r.low_confidence:
+            reasons.append("low_confidence")
+        if r.coasting and predicted >= r.coasting:
+            reasons.append("coasting")
+        if r.count_drop and drop >= r.count_drop:
+            reasons.append("count_drop")
+        if fault and r.fault:
+            reasons.append("fault")
+        q = FrameQuality(int(frame), float(t), lm, ls, sh, people, observed, predicted, mean_conf, int(drop),
+                         bool(fault), tuple(sorted(reasons)))
+        self.frames += 1
+        if q.reasons:
+            self.flagged += 1
+            self._flag(q)
+        return q
+
+    def _flag(self, q: FrameQuality) -> None:
+        o = self._open
+        if o is not None and q.frame - o[1] - 1 <= self.rules.merge_gap:
+            o[1], o[3] = q.frame, q.t
+            o[4].update(q.reasons)
+            return
+        self._close()
+        self._open = [q.frame, q.frame, q.t, q.t, set(q.reasons)]
+
+    def _close(self) -> None:
+        if self._open is not None:
+            f0, f1, t0, t1, rs = self._open
+            self._ranges.append(ReviewRange(f0, f1, t0, t1, tuple(sorted(rs))))
+            self._open = None
+
+    def ranges(self) -> list[ReviewRange]:
+        """Flagged frames merged into ranges (gaps of at most rules.merge_gap frames are joined)."""
+        out = list(self._ranges)
+        if self._open is not None:
+            f0, f1, t0, t1, rs = self._open
+            out.append(ReviewRange(f0, f1, t0, t1, tuple(sorted(rs))))
+        return out
+
+
+def _num(x: float | None, decimals: int) -> str:
+    """Fixed-decimal JSON number, or null; no NaN/infinity (RFC 7493), no negative zero."""
+    if x is None:
+        return "null"
+    x = float(x)
+    if not math.isfinite(x):
+        raise RedactError("quality: a non-finite measure cannot be written")
+    s = f"{x:.{decimals}f}"
+    return s[1:] if s.startswith("-") and float(s) == 0.0 else s
+
+
+def encode_quality_line(q: FrameQuality) -> bytes:
+    """One line of quality.jsonl (UTF-8, newline-terminated), with fixed decimals so reruns are
+    byte-identical: time 6, luma and sharpness 2, confidence 3."""
+    reasons = ",".join(f'"{r}"' for r in q.reasons)
+    line = (f'{{"frame":{int(q.frame)},"t":{_num(q.t, 6)},"luma_mean":{_num(q.luma_mean, 2)},'
+            f'"luma_std":{_num(q.luma_std, 2)},"sharpness":{_num(q.sharpness, 2)},"people":{int(q.people)},'
+            f'"observed":{int(q.observed)},"predicted":{int(q.predicted)},"mean_conf":{_num(q.mean_conf, 3)},'
+            f'"count_drop":{int(q.count_drop)},"fault":{"true" if q.fault else "false"},"reasons":[{reasons}]}}\n')
+    return line.encode("utf-8")
+
+
+REVIEW_NOTE = ("These ranges are where automated redaction is most likely to have missed someone. "
+               "They are a guide, not a clearance: a person must review the whole redacted video "
+               "before any disclosure.")
+
+
+def review_document(ranges: list[ReviewRange], rules: ReviewRules, frames: int | None = None) -> bytes:
+    """review.json: the rules used and the ranges to review, as deterministic UTF-8 JSON bytes."""
+    doc = {
+        "kind": "review ranges",
+        "version": 1,
+        "note": REVIEW_NOTE,
+        "frames": frames,
+        "rules": asdict(rules),
+        "ranges": [
+            {"frame_start": r.frame_start, "frame_end": r.frame_end,
+             "t_start": round(r.t_start, 6), "t_end": round(r.t_end, 6), "reasons": list(r.reasons)}
+            for r in ranges
+        ],
+    }
+    return (json.dumps(doc, sort_keys=True, indent=2, ensure_ascii=False, allow_nan=False) + "\n").encode("utf-8")

@@ -1,0 +1,257 @@
+"""Package verification: a numbered series of checks that mirrors the package format.
+
+ 1. Open the package (directory or .tar) without following links; unsafe entries are findings.
+ 2. Read envelope.json strictly (size limit, duplicate keys, NaN) and require the exact bytes we write.
+ 3. Check the DSSE signature over the exact payload bytes with the trusted keys. If it fails,
+    stop here: an unauthenticated payload is never parsed.
+ 4. Parse the payload strictly as an in-toto Statement v1 of our predicate type.
+ 5. Closed file set: package-file subjects = files in the package (minus envelope.json).
+ 6. Every file's size and SHA-256 against its subject.
+ 7. The transform log: chain intact, head and entry count equal to the signed predicate, and its
+    last entry records signing with the key that verified.
+ 8. frames.sha256: RFC 6962 root equals predicate source.frames_root (and the frame count).
+ 9. --source: SHA-256 and size equal predicate source.sha256 / source.bytes.
+10. --video: SHA-256 and size equal the redacted-video subject.
+Success returns the verified data; failure raises VerificationFailed with every finding.
+"""
+
+from __future__ import annotations
+
+import re
+import tarfile
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Sequence
+
+from redact import jsonio, merkle, signing
+from redact.errors import InputError, PackageError, VerificationFailed
+from redact.hashing import sha256_file, sha256_stream
+from redact.log import check_chain
+from redact.package import (ENVELOPE, ENVELOPE_LIMIT, FRAMES, LOG, PREDICATE_TYPE, ROLE_FILE, ROLE_VIDEO,
+                            PackageReader, TarReader, check_name, open_package)
+
+_HEX64 = re.compile(r"[0-9a-f]{64}")
+
+
+@dataclass(frozen=True)
+class VerifiedPackage:
+    """What a successful verification vouches for; `payload` is the exact signed bytes."""
+
+    statement: dict
+    payload: bytes
+    key_id: str
+    predicate: dict
+    subjects: tuple[dict, ...]
+    checked: tuple[str, ...] = field(default=())  # what was checked, in words, for reports
+
+    @property
+    def video_subject(self) -> dict | None:
+        return next((s for s in self.subjects if s["annotations"]["role"] == ROLE_VIDEO), None)
+
+
+def verify_package(path: Path, trusted_keys: Sequence[signing.PublicKey], source: Path | None = None,
+                   video: Path | None = None) -> VerifiedPackage:
+    """Run checks 1–10 on a package; raises VerificationFailed(findings) listing every problem.
+
+    An empty list of trusted keys is a usage error (InputError), never a pass.
+    """
+    keys = list(trusted_keys)
+    if not keys:
+        raise InputError("no trusted public key given; pass at least one --key PUB.pem")
+    for p, what in ((source, "source file"), (video, "redacted video")):
+        if p is not None and not Path(p).is_file():
+            raise InputError(f"{what} {p} does not exist")
+    findings: list[str] = []
+    try:
+        with open_package(Path(path)) as reader:
+            result = _verify(reader, keys, source, video, findings)
+    except PackageError as e:  # step 1 could not even open it, or a file could not be read safely
+        findings.append(str(e))
+        result = None
+    except (tarfile.TarError, OSError, EOFError) as e:  # a damaged archive found while reading a member
+        findings.append(f"{Path(path).name}: cannot be read completely ({e})")
+        result = None
+    if findings or result is None:
+        raise VerificationFailed(findings or ["verification failed"])
+    return result
+
+
+def _verify(reader: PackageReader, keys: list, source: Path | None, video: Path | None,
+            findings: list[str]) -> VerifiedPackage | None:
+    # 1. safe listing
+    findings.extend(reader.problems)
+    if isinstance(reader, TarReader):
+        problem = reader.canonical_problem()
+        if problem:
+            findings.append(problem)
+
+    # 2. envelope bytes
+    if ENVELOPE not in reader.files:
+        findings.append(f"{ENVELOPE} is missing: the package is not signed")
+        return None
+    try:
+        env_bytes = reader.read(ENVELOPE, ENVELOPE_LIMIT)
+        envelope = jsonio.loads_object(env_bytes, ENVELOPE, ENVELOPE_LIMIT)
+    except PackageError as e:
+        findings.append(str(e))
+        return None
+
+    # 3. signature over the exact payload bytes
+    try:
+        verified = signing.verify_envelope(envelope, keys, signing.PAYLOAD_TYPE)
+    except VerificationFailed as e:
+        findings.extend(e.findings)
+        return None
+    try:
+        canonical = signing.envelope_bytes(envelope)
+    except (TypeError, ValueError):
+        canonical = b""
+    if env_bytes != canonical:
+        findings.append(f"{ENVELOPE}: not byte-identical to the envelope this tool writes "
+                        "(whitespace, key order, base64 alphabet or padding were altered)")
+
+    # 4. statement
+    try:
+        statement = jsonio.loads_object(verified.payload, "statement", ENVELOPE_LIMIT)
+    except PackageError as e:
+        findings.append(str(e))
+        return None
+    subjects, predicate = _check_statement(statement, findings)
+    if subjects is None:
+        return None
+    files = {s["name"]: s for s in subjects if s["annotations"]["role"] == ROLE_FILE}
+    video_subjects = [s for s in subjects if s["annotations"]["role"] == ROLE_VIDEO]
+
+    # 5. closed file set
+    present = set(reader.files) - {ENVELOPE}
+    for name in sorted(set(files) - present):
+        findings.append(f"{name}: missing from the package (named in the signed statement)")
+    for name in sorted(present - set(files)):
+        findings.append(f"{name}: unexpected file (not named in the signed statement)")
+
+    # 6. every hash
+    for name in sorted(set(files) & present):
+        want = files[name]
+        if reader.files[name] != want["annotations"]["bytes"]:
+            findings.append(f"{name}: size {reader.files[name]} bytes, signed size {want['annotations']['bytes']}")
+        try:
+            with reader.open(name) as f:
+                digest, _ = sha256_stream(f)
+        except (OSError, PackageError, tarfile.TarError) as e:
+            findings.append(f"{name}: cannot be read ({e})")
+            continue
+        if digest != want["digest"]["sha256"]:
+            findings.append(f"{name}: SHA-256 does not match the signed statement (file altered)")
+
+    # 7. log chain and head
+    log_info = predicate.get("log")
+    if LOG not in files:
+        findings.append(f"{LOG}: the signed statement names no transform log")
+    elif LOG in present:
+        with reader.open(LOG) as f:
+            report = check_chain(f, LOG)
+        findings.extend(report.findings)
+        if not isinstance(log_info, dict):
+            findings.append("predicate: log head is missing")
+        else:
+            if report.head != log_info.get("head"):
+                findings.append(f"{LOG}: head {report.head[:16]}… does not match the signed log head")
+            if report.entries != log_info.get("entries"):
+                findings.append(f"{LOG}: {report.entries} entries, the signed statement says {log_info.get('entries')!r}")
+        last = report.last or {}
+        if last.get("kind") != "sign":
+            findings.append(f"{LOG}: the last entry is not the signing entry")
+        elif last.get("key_id") != verified.key_id:
+            findings.append(f"{LOG}: the signing entry names key {last.get('key_id')!r}, "
+                            f"but the envelope was signed by {verified.key_id}")
+
+    # 8. per-frame digests and their RFC 6962 root
+    src = predicate.get("source") if isinstance(predicate.get("source"), dict) else {}
+    want_root = src.get("frames_root")
+    if FRAMES in files and FRAMES in present:
+        try:
+            with reader.open(FRAMES) as f:
+                digests = merkle.parse_frame_digests(line for _, line in jsonio.iter_lines(f, FRAMES, 1024))
+            got = merkle.root(digests).hex()
+            if want_root is None:
+                findings.append(f"{FRAMES}: present but the predicate has no source.frames_root")
+            elif got != want_root:
+                findings.append(f"{FRAMES}: RFC 6962 root does not match the signed source.frames_root")
+            if isinstance(src.get("frames"), int) and src["frames"] != len(digests):
+                findings.append(f"{FRAMES}: {len(digests)} frame digests, the predicate says {src['frames']} frames")
+        except PackageError as e:
+            findings.append(str(e))
+    elif want_root is not None and FRAMES not in files:
+        findings.append(f"{FRAMES}: the predicate has a frames_root but the package has no {FRAMES}")
+
+    checked = ["signature", "file set", "file hashes", "log chain"]
+    # 9. the source file
+    if source is not None:
+        digest, size = sha256_file(source)
+        if src.get("sha256") != digest:
+            findings.append(f"source: {Path(source).name} has SHA-256 {digest[:16]}…, not the signed source.sha256")
+        if "bytes" in src and src.get("bytes") != size:
+            findings.append(f"source: {Path(source).name} is {size} bytes, the signed source.bytes is {src.get('bytes')}")
+        checked.append("source file")
+
+    # 10. the redacted video
+    if video is not None:
+        if not video_subjects:
+            findings.append("video: the signed statement names no redacted video")
+        else:
+            want = video_subjects[0]
+            digest, size = sha256_file(video)
+            if digest != want["digest"]["sha256"] or size != want["annotations"]["bytes"]:
+                findings.append(f"video: {Path(video).name} does not match the signed redacted video "
+                                f"{want['name']} (SHA-256 or size differs)")
+        checked.append("redacted video")
+
+    return VerifiedPackage(statement, verified.payload, verified.key_id, predicate, tuple(subjects), tuple(checked))
+
+
+def _check_statement(statement: dict, findings: list[str]) -> tuple[list[dict] | None, dict]:
+    """Shape of an in-toto Statement v1 with our predicate; returns (subjects, predicate) or (None, {})."""
+    bad = len(findings)
+    if statement.get("_type") != signing.STATEMENT_TYPE:
+        findings.append(f"statement: _type is {statement.get('_type')!r}, expected {signing.STATEMENT_TYPE}")
+    if statement.get("predicateType") != PREDICATE_TYPE:
+        findings.append(f"statement: predicateType is {statement.get('predicateType')!r}, expected {PREDICATE_TYPE}")
+    predicate = statement.get("predicate")
+    if not isinstance(predicate, dict):
+        findings.append("statement: predicate is not an object")
+        predicate = {}
+    subjects = statement.get("subject")
+    if not isinstance(subjects, list) or not subjects:
+        findings.append("statement: subject must be a non-empty list")
+        return None, predicate
+    seen: set[str] = set()
+    videos = 0
+    for i, s in enumerate(subjects):
+        name = s.get("name") if isinstance(s, dict) else None
+        label = f"statement subject {i} ({name!r})"
+        if not isinstance(s, dict) or not isinstance(name, str):
+            findings.append(f"statement subject {i}: malformed (needs name, digest, annotations)")
+            continue
+        why = check_name(name)
+        if why:
+            findings.append(f"{label}: unsafe name ({why})")
+        if name in seen:
+            findings.append(f"{label}: named twice")
+        seen.add(name)
+        digest = s.get("digest")
+        if not isinstance(digest, dict) or not isinstance(digest.get("sha256"), str) or not _HEX64.fullmatch(digest["sha256"]):
+            findings.append(f"{label}: digest.sha256 must be 64 lowercase hex digits")
+        ann = s.get("annotations")
+        role = ann.get("role") if isinstance(ann, dict) else None
+        size = ann.get("bytes") if isinstance(ann, dict) else None
+        if role not in (ROLE_FILE, ROLE_VIDEO):
+            findings.append(f"{label}: annotations.role must be {ROLE_FILE!r} or {ROLE_VIDEO!r}")
+        if not isinstance(size, int) or isinstance(size, bool) or size < 0:
+            findings.append(f"{label}: annotations.bytes must be a non-negative integer")
+        if role == ROLE_VIDEO:
+            videos += 1
+        if role == ROLE_FILE and name == ENVELOPE:
+            findings.append(f"{label}: the envelope cannot be its own subject")
+    if videos > 1:
+        findings.append(f"statement: {videos} redacted-video subjects, at most 1 allowed")
+    return (None if len(findings) > bad else subjects), predicate

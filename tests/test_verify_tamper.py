@@ -1,0 +1,383 @@
+"""The tamper suite of issue 4: every alteration of a signed package must fail with a finding naming it."""
+
+import base64
+import hashlib
+import io
+import json
+import os
+import shutil
+import tarfile
+from pathlib import Path
+
+import pytest
+from hypothesis import given, settings, strategies as st
+
+from redact import jsonio, signing
+from redact.errors import InputError, VerificationFailed
+from redact.verify import verify_package
+
+from test_package import SEED, build_package
+
+OTHER_SEED = bytes(range(100, 132))
+
+
+@pytest.fixture(scope="module")
+def base(tmp_path_factory):
+    root = tmp_path_factory.mktemp("base")
+    signer = signing.Signer.from_seed(SEED)
+    d = build_package(root / "d", signer)
+    t = build_package(root / "t", signer, archive=True)
+    return {"dir": d, "tar": t, "signer": signer, "key": signer.public_key}
+
+
+def copy_dir(base, tmp_path) -> Path:
+    dst = tmp_path / "pkg"
+    shutil.copytree(base["dir"]["path"], dst, symlinks=True)
+    return dst
+
+
+def findings(path, key, **kw) -> list[str]:
+    with pytest.raises(VerificationFailed) as e:
+        verify_package(path, [key], **kw)
+    assert e.value.findings, "VerificationFailed must carry findings"
+    return e.value.findings
+
+
+def has(fs, *words):
+    return any(all(w in f for w in words) for f in fs)
+
+
+def payload_of(pkg: Path) -> bytes:
+    return signing.b64decode_any(json.loads((pkg / "envelope.json").read_bytes())["payload"])
+
+
+def resign(pkg: Path, payload: bytes, signer, payload_type=signing.PAYLOAD_TYPE) -> None:
+    """What a holder of a signing key could do: sign new payload bytes and write a proper envelope."""
+    env = signing.sign_envelope(payload, payload_type, signer)
+    (pkg / "envelope.json").write_bytes(signing.envelope_bytes(env))
+
+
+def resign_statement(pkg: Path, signer, mutate=None, rehash=True) -> None:
+    """Re-sign the statement after optional edits, updating subject hashes of files that changed."""
+    st_ = json.loads(payload_of(pkg))
+    if rehash:
+        for s in st_["subject"]:
+            f = pkg / s["name"]
+            if s["annotations"]["role"] == "package-file" and f.is_file():
+                s["digest"]["sha256"] = hashlib.sha256(f.read_bytes()).hexdigest()
+                s["annotations"]["bytes"] = f.stat().st_size
+    if mutate:
+        mutate(st_)
+    resign(pkg, jsonio.dumps(st_), signer)
+
+
+# --- clean packages -----------------------------------------------------------------------------
+
+@pytest.mark.parametrize("kind", ["dir", "tar"])
+def test_clean_package_verifies(base, kind):
+    p = base[kind]
+    v = verify_package(p["path"], [base["key"]], source=p["source"], video=p["video"])
+    assert v.key_id == base["signer"].key_id
+    assert v.payload == p["payload"]
+    assert v.predicate["source"]["sha256"] == hashlib.sha256(p["source"].read_bytes()).hexdigest()
+    assert "source file" in v.checked and "redacted video" in v.checked
+
+
+def test_resign_helper_is_faithful(base, tmp_path):
+    # Guard for the tests below: re-signing an untouched package with the right key still verifies,
+    # so their failures come from the tampering, not from the helper.
+    pkg = copy_dir(base, tmp_path)
+    resign_statement(pkg, base["signer"])
+    verify_package(pkg, [base["key"]])
+
+
+def test_empty_key_list_is_an_error(base):
+    with pytest.raises(InputError, match="no trusted public key"):
+        verify_package(base["dir"]["path"], [])
+
+
+def test_other_source_and_video_fail(base, tmp_path):
+    other = tmp_path / "other.bin"
+    other.write_bytes(b"a different file")
+    fs = findings(base["dir"]["path"], base["key"], source=other)
+    assert has(fs, "source:", "SHA-256") and has(fs, "source:", "bytes")
+    fs = findings(base["dir"]["path"], base["key"], video=other)
+    assert has(fs, "video:", "does not match")
+
+
+def test_video_given_but_not_signed(base, tmp_path):
+    p = build_package(tmp_path, base["signer"], video=False)
+    fs = findings(p["path"], base["key"], video=p["video"])
+    assert has(fs, "names no redacted video")
+
+
+# --- one bit flipped in every file --------------------------------------------------------------
+
+FILES = ["skeletons.jsonl", "tracks.json", "quality.jsonl", "review.json", "frames.sha256", "log.jsonl", "envelope.json"]
+
+
+@pytest.mark.parametrize("name", FILES)
+def test_one_bit_flipped_in_every_file(base, tmp_path, name):
+    assert sorted(FILES) == sorted(os.listdir(base["dir"]["path"]))  # the loop covers every file
+    original = (base["dir"]["path"] / name).read_bytes()
+    for pos in sorted({0, 1, len(original) // 3, len(original) // 2, len(original) - 2, len(original) - 1}):
+        for bit in (0, 5):
+            pkg = tmp_path / f"p{pos}-{bit}"
+            shutil.copytree(base["dir"]["path"], pkg)
+            data = bytearray(original); data[pos] ^= 1 << bit
+            (pkg / name).write_bytes(bytes(data))
+            fs = findings(pkg, base["key"])
+            if name == "envelope.json":
+                assert has(fs, "envelope") or has(fs, "signature"), fs
+            else:
+                assert has(fs, name, "SHA-256 does not match"), fs
+
+
+def test_bit_flips_across_the_tar(base, tmp_path):
+    original = base["tar"]["path"].read_bytes()
+    bad = tmp_path / "bad.tar"
+    for pos in range(0, len(original), 211):
+        data = bytearray(original); data[pos] ^= 0x10
+        bad.write_bytes(bytes(data))
+        findings(bad, base["key"])
+
+
+# --- files removed or added ---------------------------------------------------------------------
+
+@pytest.mark.parametrize("name", FILES)
+def test_file_removed(base, tmp_path, name):
+    pkg = copy_dir(base, tmp_path)
+    (pkg / name).unlink()
+    fs = findings(pkg, base["key"])
+    if name == "envelope.json":
+        assert has(fs, "envelope.json is missing")
+    else:
+        assert has(fs, name, "missing from the package")
+
+
+@pytest.mark.parametrize("extra", ["notes.txt", ".hidden", "sub/x.json"])
+def test_file_added(base, tmp_path, extra):
+    pkg = copy_dir(base, tmp_path)
+    (pkg / extra).parent.mkdir(exist_ok=True)
+    (pkg / extra).write_bytes(b"added")
+    assert has(findings(pkg, base["key"]), extra, "unexpected file")
+
+
+def test_empty_directory_added(base, tmp_path):
+    pkg = copy_dir(base, tmp_path)
+    (pkg / "empty").mkdir()
+    assert has(findings(pkg, base["key"]), "empty", "unexpected empty directory")
+
+
+# --- the transform log --------------------------------------------------------------------------
+
+LOG_EDITS = {
+    "removed": lambda ls: ls[:1] + ls[2:],
+    "reordered": lambda ls: [ls[1], ls[0]] + ls[2:],
+    "edited": lambda ls: [ls[0].replace(b'"frames":6', b'"frames":7')] + ls[1:],
+}
+
+
+@pytest.mark.parametrize("how", sorted(LOG_EDITS))
+def test_log_line_tampered(base, tmp_path, how):
+    pkg = copy_dir(base, tmp_path)
+    lines = (pkg / "log.jsonl").read_bytes().splitlines(keepends=True)
+    new = LOG_EDITS[how](lines)
+    assert new != lines
+    (pkg / "log.jsonl").write_bytes(b"".join(new))
+    assert has(findings(pkg, base["key"]), "log.jsonl", "SHA-256 does not match")
+    # Even a key holder who re-signs the new file hashes cannot hide a broken chain.
+    resign_statement(pkg, base["signer"])
+    assert has(findings(pkg, base["key"]), "log.jsonl", "prev does not match")
+
+
+def test_log_last_line_edited_and_resigned_breaks_the_head(base, tmp_path):
+    pkg = copy_dir(base, tmp_path)
+    data = (pkg / "log.jsonl").read_bytes().replace(b'"archive":false', b'"archive":true')
+    (pkg / "log.jsonl").write_bytes(data)
+    resign_statement(pkg, base["signer"])
+    assert has(findings(pkg, base["key"]), "log.jsonl", "does not match the signed log head")
+
+
+def test_log_signing_entry_names_another_key(base, tmp_path):
+    pkg = copy_dir(base, tmp_path)
+    other = signing.Signer.from_seed(OTHER_SEED)
+    resign_statement(pkg, other)
+    with pytest.raises(VerificationFailed) as e:
+        verify_package(pkg, [base["key"], other.public_key])
+    assert has(e.value.findings, "signing entry names key", base["signer"].key_id)
+
+
+# --- the envelope and statement -----------------------------------------------------------------
+
+def test_resigned_with_another_key(base, tmp_path):
+    pkg = copy_dir(base, tmp_path)
+    resign(pkg, payload_of(pkg), signing.Signer.from_seed(OTHER_SEED))
+    assert has(findings(pkg, base["key"]), "does not verify with any trusted key")
+
+
+@pytest.mark.parametrize("cut", [1, 4, 8])
+def test_signature_truncated(base, tmp_path, cut):
+    pkg = copy_dir(base, tmp_path)
+    env = json.loads((pkg / "envelope.json").read_bytes())
+    sig = base64.b64decode(env["signatures"][0]["sig"])
+    env["signatures"][0]["sig"] = base64.b64encode(sig[:-cut]).decode()
+    (pkg / "envelope.json").write_bytes(signing.envelope_bytes(env))
+    assert has(findings(pkg, base["key"]), f"{64 - cut} bytes, expected 64")
+
+
+def test_payload_type_changed(base, tmp_path):
+    pkg = copy_dir(base, tmp_path)
+    env = json.loads((pkg / "envelope.json").read_bytes())
+    env["payloadType"] = "application/json"
+    (pkg / "envelope.json").write_bytes(signing.envelope_bytes(env))
+    fs = findings(pkg, base["key"])
+    assert has(fs, "payloadType", "application/json") and has(fs, "does not verify")
+    # signed under the wrong type by the right key: still refused
+    resign(pkg, payload_of(pkg), base["signer"], payload_type="application/json")
+    assert has(findings(pkg, base["key"]), "payloadType")
+
+
+def test_subject_renamed_outside(base, tmp_path):
+    pkg = copy_dir(base, tmp_path)
+
+    def rename(st_):
+        next(s for s in st_["subject"] if s["name"] == "tracks.json")["name"] = "../x"
+    resign_statement(pkg, base["signer"], rename)
+    fs = findings(pkg, base["key"])
+    assert has(fs, "../x", "unsafe name", "'..'")
+    # and without the key: the edited payload no longer matches the signature
+    pkg2 = tmp_path / "p2"
+    shutil.copytree(base["dir"]["path"], pkg2)
+    env = json.loads((pkg2 / "envelope.json").read_bytes())
+    env["payload"] = base64.b64encode(payload_of(pkg2).replace(b'"tracks.json"', b'"../x"')).decode()
+    (pkg2 / "envelope.json").write_bytes(signing.envelope_bytes(env))
+    assert has(findings(pkg2, base["key"]), "does not verify")
+
+
+def test_duplicate_keys_in_statement(base, tmp_path):
+    pkg = copy_dir(base, tmp_path)
+    payload = payload_of(pkg)
+    dup = payload.replace(b'"predicateType":', b'"predicateType":"https://example.invalid/other","predicateType":', 1)
+    assert dup != payload
+    resign(pkg, dup, base["signer"])
+    assert has(findings(pkg, base["key"]), "statement", "duplicate key", "predicateType")
+
+
+def test_envelope_reformatted(base, tmp_path):
+    pkg = copy_dir(base, tmp_path)
+    env = json.loads((pkg / "envelope.json").read_bytes())
+    (pkg / "envelope.json").write_text(json.dumps(env, indent=2))
+    assert has(findings(pkg, base["key"]), "envelope.json", "not byte-identical")
+
+
+def test_duplicate_keys_in_envelope(base, tmp_path):
+    pkg = copy_dir(base, tmp_path)
+    data = (pkg / "envelope.json").read_bytes()
+    (pkg / "envelope.json").write_bytes(data.replace(b'{"payload"', b'{"payloadType":"x","payload"', 1))
+    assert has(findings(pkg, base["key"]), "envelope.json", "duplicate key")
+
+
+def test_frames_digests_changed_and_resigned(base, tmp_path):
+    pkg = copy_dir(base, tmp_path)
+    lines = (pkg / "frames.sha256").read_bytes().splitlines(keepends=True)
+    (pkg / "frames.sha256").write_bytes(b"".join([lines[1], lines[0]] + lines[2:]))
+    resign_statement(pkg, base["signer"])
+    assert has(findings(pkg, base["key"]), "frames.sha256", "RFC 6962 root")
+
+
+def test_signed_log_head_changed(base, tmp_path):
+    pkg = copy_dir(base, tmp_path)
+
+    def head(st_):
+        st_["predicate"]["log"]["head"] = "00" * 32
+    resign_statement(pkg, base["signer"], head)
+    assert has(findings(pkg, base["key"]), "log.jsonl", "signed log head")
+
+
+# --- links and archives -------------------------------------------------------------------------
+
+def test_symlink_in_package(base, tmp_path):
+    pkg = copy_dir(base, tmp_path)
+    outside = tmp_path / "tracks-copy.json"
+    shutil.copy(pkg / "tracks.json", outside)
+    (pkg / "tracks.json").unlink()
+    os.symlink(outside, pkg / "tracks.json")  # same content, but through a link
+    fs = findings(pkg, base["key"])
+    assert has(fs, "tracks.json", "symlink")
+
+
+def test_symlinked_directory_in_package(base, tmp_path):
+    pkg = copy_dir(base, tmp_path)
+    os.symlink(tmp_path, pkg / "up")
+    assert has(findings(pkg, base["key"]), "up", "symlink")
+
+
+def _members(base):
+    with tarfile.open(base["tar"]["path"]) as tar:
+        return [(m, tar.extractfile(m).read()) for m in tar.getmembers()]
+
+
+@pytest.mark.parametrize("name,type_,expect", [
+    ("../x", tarfile.REGTYPE, "'..'"),
+    ("/tmp/x", tarfile.REGTYPE, "absolute"),
+    ("evil", tarfile.SYMTYPE, "link"),
+    ("evil2", tarfile.LNKTYPE, "link"),
+])
+def test_tar_with_unsafe_member(base, tmp_path, name, type_, expect):
+    path = tmp_path / "evil.tar"
+    with tarfile.open(path, "w") as tar:
+        for m, data in _members(base):
+            tar.addfile(m, io.BytesIO(data))
+        extra = tarfile.TarInfo(name)
+        extra.type = type_
+        if type_ == tarfile.REGTYPE:
+            extra.size = 3
+            tar.addfile(extra, io.BytesIO(b"bad"))
+        else:
+            extra.linkname = "/etc/passwd"
+            tar.addfile(extra)
+    fs = findings(path, base["key"])
+    assert has(fs, name, expect)
+    assert sorted(os.listdir(tmp_path)) == ["evil.tar"]  # nothing extracted anywhere
+
+
+def test_tar_header_altered(base, tmp_path):
+    path = tmp_path / "t.tar"
+    with tarfile.open(path, "w", format=tarfile.USTAR_FORMAT) as tar:
+        for m, data in _members(base):
+            m.mtime = 1700000000  # same names and contents, different headers
+            tar.addfile(m, io.BytesIO(data))
+    assert has(findings(path, base["key"]), "t.tar", "not byte-identical")
+
+
+def test_tar_trailing_garbage(base, tmp_path):
+    path = tmp_path / "t.tar"
+    path.write_bytes(base["tar"]["path"].read_bytes() + b"\x00" * 512 + b"appended")
+    assert has(findings(path, base["key"]), "not byte-identical")
+
+
+# --- property: random byte changes never pass ---------------------------------------------------
+
+@settings(max_examples=60, deadline=None)
+@given(st.data())
+def test_random_byte_mutations_never_verify(base, tmp_path_factory, data):
+    kind = data.draw(st.sampled_from(["dir", "tar"]))
+    root = tmp_path_factory.mktemp("mut")
+    if kind == "dir":
+        pkg = root / "pkg"
+        shutil.copytree(base["dir"]["path"], pkg)
+        target = pkg / data.draw(st.sampled_from(FILES))
+    else:
+        pkg = target = root / "pkg.tar"
+        shutil.copy(base["tar"]["path"], pkg)
+    raw = bytearray(target.read_bytes())
+    # distinct positions, each XORed with a non-zero byte: the file really changes
+    for pos in data.draw(st.lists(st.integers(0, len(raw) - 1), min_size=1, max_size=3, unique=True)):
+        raw[pos] ^= data.draw(st.integers(1, 255))
+    if data.draw(st.booleans()):
+        cut = data.draw(st.integers(0, len(raw) - 1))
+        raw = raw[:cut]
+    target.write_bytes(bytes(raw))
+    with pytest.raises(VerificationFailed):
+        verify_package(pkg, [base["key"]])
