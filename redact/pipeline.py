@@ -93,6 +93,14 @@ class ProcessResult:
         return self.frames / self.seconds if self.seconds > 0 else 0.0
 
 
+def tracker_config_for(settings: ProcessSettings, fps: float) -> TrackerConfig:
+    """The tracker configuration a run uses: coast time converted to frames at the source rate.
+
+    Anything that must reproduce a run's track ids (the track sheet, a redaction plan) uses this.
+    """
+    return replace(settings.tracker, max_coast_frames=int(round(settings.coast_seconds * (fps or 25.0))))
+
+
 def frame_ranges(indices: list[int]) -> list[list[int]]:
     """Sorted frame indices → inclusive [start, end] ranges."""
     out: list[list[int]] = []
@@ -225,8 +233,7 @@ def process_video(source: str | Path, out_dir: str | Path, signer, settings: Pro
     entry = get_model(task="pose")
     if estimator is None:
         estimator = PoseEstimator.default(settings.pose, settings.threads)  # hash check before any output
-    fps = float(info.fps) if info.fps else 25.0
-    tracker_cfg = replace(settings.tracker, max_coast_frames=int(round(settings.coast_seconds * fps)))
+    tracker_cfg = tracker_config_for(settings, float(info.fps))
     plate = _build_plate(source, estimator, settings) if settings.render.style == "plate" else None
     obscurer = obscurer_for(settings.render, plate)
 

@@ -23,12 +23,20 @@ MAX_SIDE = 20000
 
 @dataclass(frozen=True)
 class PoseSettings:
-    """Detection settings: model input long side, person score threshold, NMS IoU, max people."""
+    """Detection settings: model input long side, person score threshold, NMS IoU, max people.
+
+    containment: a box lying at least this fraction inside a higher-scoring box is dropped as a
+    duplicate (0 = off). The detector often reports a partly visible or bent person twice, a
+    whole-body box and a part box inside it; plain IoU NMS keeps both because their IoU is low.
+    Dropping the inner box never uncovers anyone, since it lies inside the kept box's region
+    (common practice, "intersection over the smaller area").
+    """
 
     input_long_side: int = 640
     score_threshold: float = 0.25
     nms_iou: float = 0.6
     max_people: int = 200
+    containment: float = 0.85
 
     def __post_init__(self) -> None:
         if self.input_long_side < STRIDE or self.input_long_side % STRIDE:
@@ -37,6 +45,8 @@ class PoseSettings:
             raise InputError(f"score threshold must be between 0 and 1, got {self.score_threshold}")
         if not 0.0 < self.nms_iou <= 1.0:
             raise InputError(f"NMS IoU must be in (0, 1], got {self.nms_iou}")
+        if not 0.0 <= self.containment <= 1.0:
+            raise InputError(f"containment must be in [0, 1], got {self.containment}")
 
 
 @dataclass(frozen=True)
@@ -97,8 +107,12 @@ def letterbox(image: np.ndarray, in_w: int, in_h: int) -> tuple[np.ndarray, Lett
     return np.ascontiguousarray(tensor), Letterbox(r, left, top, w, h, in_w, in_h)
 
 
-def nms(boxes: np.ndarray, scores: np.ndarray, iou: float) -> np.ndarray:
-    """Greedy non-maximum suppression; returns kept indices, best score first."""
+def nms(boxes: np.ndarray, scores: np.ndarray, iou: float, containment: float = 0.0) -> np.ndarray:
+    """Greedy non-maximum suppression; returns kept indices, best score first.
+
+    With containment > 0, a box whose intersection with a kept box covers at least that fraction
+    of its own area is suppressed too.
+    """
     order = np.argsort(-scores, kind="stable")
     boxes = boxes.astype(np.float64)
     areas = np.maximum(0, boxes[:, 2] - boxes[:, 0]) * np.maximum(0, boxes[:, 3] - boxes[:, 1])
@@ -114,7 +128,11 @@ def nms(boxes: np.ndarray, scores: np.ndarray, iou: float) -> np.ndarray:
         inter = np.maximum(0, xx2 - xx1) * np.maximum(0, yy2 - yy1)
         union = areas[i] + areas[rest] - inter
         ious = np.divide(inter, union, out=np.zeros_like(inter), where=union > 0)
-        order = rest[ious <= iou]
+        drop = ious > iou
+        if containment > 0:
+            inside = np.divide(inter, areas[rest], out=np.ones_like(inter), where=areas[rest] > 0)
+            drop |= inside >= containment
+        order = rest[~drop]
     return np.array(keep, dtype=np.int64)
 
 
@@ -130,7 +148,7 @@ def decode(output: np.ndarray, lb: Letterbox, settings: PoseSettings) -> Poses:
     p = pred[:, cand].T  # [K, 56]
     cx, cy, bw, bh = p[:, 0], p[:, 1], p[:, 2], p[:, 3]
     boxes = np.stack([cx - bw / 2, cy - bh / 2, cx + bw / 2, cy + bh / 2], axis=1)
-    keep = nms(boxes, p[:, 4], settings.nms_iou)[: settings.max_people]
+    keep = nms(boxes, p[:, 4], settings.nms_iou, settings.containment)[: settings.max_people]
     boxes, p = boxes[keep], p[keep]
     kps = p[:, 5:].reshape(-1, NUM_KEYPOINTS, 3).copy()
     # map from input pixels back to source pixels

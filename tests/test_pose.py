@@ -109,3 +109,10 @@ def test_nms_against_cv2():
     ours = sorted(nms(boxes, scores, 0.5).tolist())
     theirs = sorted(np.array(cv2.dnn.NMSBoxes(np.c_[xy, wh].tolist(), scores.tolist(), 0.0, 0.5)).reshape(-1).tolist())
     assert ours == theirs
+
+
+def test_containment_drops_only_boxes_inside_a_better_box():
+    boxes = np.array([[0, 0, 100, 200], [10, 10, 60, 90], [90, 0, 190, 200]], np.float32)
+    scores = np.array([0.9, 0.8, 0.7], np.float32)
+    assert sorted(nms(boxes, scores, 0.6).tolist()) == [0, 1, 2]          # plain NMS keeps the part box
+    assert sorted(nms(boxes, scores, 0.6, containment=0.85).tolist()) == [0, 2]
