@@ -28,6 +28,7 @@ from redact.pose import PoseEstimator, PoseSettings
 from redact.quality import QualityMonitor, ReviewRange, ReviewRules, encode_quality_line, review_document
 from redact.records import Poses, Tracks
 from redact.render import RenderSettings, obscure_all, obscurer_for, render_frame
+from redact.stages import WriteBehind, read_ahead
 from redact.track import Tracker, TrackerConfig
 
 VIDEO_NAME = "redacted.mp4"
@@ -42,7 +43,10 @@ class ProcessSettings:
     path (converted to frames with the source frame rate). lookback_seconds: when a person is first
     detected, the frames of this long before are obscured where the person stood, since people
     entering the picture (from an edge, out of shadow) are usually visible before they are
-    detected; output is delayed by that many frames. crf: x264 quality (lower = better).
+    detected; output is delayed by that many frames. detect_every: run the model on every k-th
+    frame only and let the tracker carry people in between, with margins growing on frames
+    without detection (faster; a person who appears between detections is found up to k-1
+    frames late, which the look-back covers when k-1 frames fit in it). crf: x264 quality (lower = better).
     """
 
     pose: PoseSettings = field(default_factory=PoseSettings)
@@ -51,6 +55,7 @@ class ProcessSettings:
     review: ReviewRules = field(default_factory=ReviewRules)
     coast_seconds: float = 1.5
     lookback_seconds: float = 0.5
+    detect_every: int = 1
     keep_audio: bool = False
     archive: bool = False
     threads: int | None = None
@@ -62,6 +67,8 @@ class ProcessSettings:
             raise InputError(f"coast time must be between 0 and 60 seconds, got {self.coast_seconds}")
         if not 0 <= self.lookback_seconds <= 10:
             raise InputError(f"look-back time must be between 0 and 10 seconds, got {self.lookback_seconds}")
+        if not 1 <= self.detect_every <= 10:
+            raise InputError(f"detect-every must be between 1 and 10 frames, got {self.detect_every}")
         if not 0 <= self.crf <= 51:
             raise InputError(f"crf must be between 0 and 51, got {self.crf}")
 
@@ -258,7 +265,7 @@ def _run(source, info, out_dir, staging, video_final, pkg_final, signer, setting
     log = TransformLog(pkg_dir / package.LOG)
     log.append("probe", **{k: v for k, v in info.as_dict().items() if k != "path"}, name=source.name)
     log.append("model", id=entry.id, sha256=entry.sha256, licence=entry.licence, runtime="onnxruntime-cpu")
-    log.append("detection", **asdict(settings.pose))
+    log.append("detection", **asdict(settings.pose), detect_every=settings.detect_every)
     log.append("tracking", **asdict(tracker_cfg), coast_seconds=settings.coast_seconds)
     if plate is not None:
         log.append("plate", samples=settings.plate_samples, valid_fraction=round(float(plate.valid.mean()), 4))
@@ -268,18 +275,20 @@ def _run(source, info, out_dir, staging, video_final, pkg_final, signer, setting
     stats = _Stats()
     lookback = _Lookback(int(round(settings.lookback_seconds * float(info.fps or 25))), obscurer,
                          settings.render.regions, tracker_cfg.max_margin)
-    digests: list[bytes] = []
+    n_frames = 0
     with VideoReader(source, threads=0) as reader, \
             VideoWriter(video_tmp, info.width, info.height, info.time_base, info.fps, crf=settings.crf) as writer, \
+            WriteBehind(writer.write, depth=4) as encoder, \
             open(pkg_dir / package.SKELETONS, "wb") as skel, \
             open(pkg_dir / package.QUALITY, "wb") as qual, \
             open(pkg_dir / package.FRAMES, "wb") as frames_out:
-        for frame in reader.frames():
+        for frame in read_ahead(reader.frames(), depth=4):
             tracks: Tracks | None
             try:
                 if frame.corrupt:
                     raise RedactError("the decoder reported damaged data in this frame")
-                poses = estimator.estimate(frame.image)
+                detect = frame.index % settings.detect_every == 0
+                poses = estimator.estimate(frame.image) if detect else None
                 tracks = tracker.update(poses, frame.t, frame.index)
                 out = render_frame(frame.image, tracks, settings.render, plate=plate, obscurer=obscurer)
                 status = rows.STATUS_OK
@@ -290,17 +299,17 @@ def _run(source, info, out_dir, staging, video_final, pkg_final, signer, setting
                 stats.fault(frame.index, type(e).__name__)
             pts = frame.pts if frame.pts is not None else frame.index
             for _, ready_pts, ready in lookback.push(frame.index, pts, out, tracks, stats):
-                writer.write(ready, ready_pts)
+                encoder.submit(ready, ready_pts)
             skel.write(rows.encode_row(frame.index, frame.pts, frame.t, tracks or Tracks.empty(), status))
             qual.write(encode_quality_line(monitor.observe(frame.index, frame.t, frame.image, tracks,
                                                            fault=tracks is None)))
             frames_out.write(frame.digest.hex().encode() + b"\n")
-            digests.append(frame.digest)
+            n_frames += 1
             if progress is not None:
                 progress(frame.index + 1, info.frames)
         for _, ready_pts, ready in lookback.flush():
-            writer.write(ready, ready_pts)
-    n_frames = len(digests)
+            encoder.submit(ready, ready_pts)
+        encoder.close()
     log.append("decode", frames=n_frames, sha256=reader.sha256, bytes=reader.bytes,
                stopped_early=reader.stopped_early, corrupt_frames=reader.corrupt_frames)
     log.append("redaction", style=settings.render.style, figures=settings.render.draws_figures,

@@ -32,12 +32,15 @@ def pipeline_options(fn):
                   help="Minimum person score of the detector. Lower finds more people and more false alarms.")
     @click.option("--input-size", type=click.IntRange(160, 1920), default=640, show_default=True,
                   help="Long side of the model input in pixels (a multiple of 32). Larger finds smaller people, slower.")
+    @click.option("--detect-every", type=click.IntRange(1, 10), default=1, show_default=True,
+                  help="Run the detector on every k-th frame and track in between (faster; margins grow "
+                       "on frames without detection).")
     @click.option("--threads", type=click.IntRange(1, 256), default=None, help="CPU threads for the model (default: all cores).")
     @click.option("--crf", type=click.IntRange(0, 51), default=20, show_default=True, help="H.264 quality of the redacted video (lower is better).")
     @click.option("--keep-audio", is_flag=True, help="Carry the source's audio into the redacted video (dropped by default: voices identify people).")
     @click.option("--archive", is_flag=True, help="Write the package as one .tar instead of a folder.")
     @functools.wraps(fn)
-    def wrapper(*args, style, figures, margin, coast_seconds, score_threshold, input_size, threads, crf,
+    def wrapper(*args, style, figures, margin, coast_seconds, score_threshold, input_size, detect_every, threads, crf,
                 keep_audio, archive, **kwargs):
         if input_size % 32:
             raise click.BadParameter(f"must be a multiple of 32, got {input_size}", param_hint="--input-size")
@@ -46,7 +49,7 @@ def pipeline_options(fn):
             tracker=TrackerConfig(),
             render=RenderSettings(style=style, figure=figures, regions=RegionSettings(base_margin=margin)),
             review=ReviewRules(),
-            coast_seconds=coast_seconds, keep_audio=keep_audio, archive=archive, threads=threads, crf=crf,
+            coast_seconds=coast_seconds, detect_every=detect_every, keep_audio=keep_audio, archive=archive, threads=threads, crf=crf,
         )
         return fn(*args, **kwargs)
 

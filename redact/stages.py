@@ -1,0 +1,108 @@
+"""Overlap decoding, inference and encoding: one thread each side of the model, bounded queues.
+
+onnxruntime, OpenCV and FFmpeg release the GIL while they work, so decoding the next frames and
+encoding the previous ones run beside inference. Queues are bounded, so memory does not grow with
+clip length; an error on either side stops both and is re-raised in the caller's thread.
+"""
+
+from __future__ import annotations
+
+import queue
+import threading
+from typing import Callable, Iterable, Iterator, TypeVar
+
+T = TypeVar("T")
+_END = object()
+
+
+class _Failure:
+    def __init__(self, error: BaseException):
+        self.error = error
+
+
+def read_ahead(items: Iterable[T], depth: int = 4) -> Iterator[T]:
+    """Iterate `items` in a background thread, keeping at most `depth` items ready."""
+    q: queue.Queue = queue.Queue(maxsize=max(1, depth))
+    stop = threading.Event()
+
+    def put(item) -> bool:
+        while not stop.is_set():
+            try:
+                q.put(item, timeout=0.1)
+                return True
+            except queue.Full:
+                continue
+        return False
+
+    def work() -> None:
+        try:
+            for item in items:
+                if not put(item):
+                    return
+        except BaseException as e:  # handed to the consumer, which re-raises it
+            put(_Failure(e))
+            return
+        put(_END)
+
+    thread = threading.Thread(target=work, name="redact-decode", daemon=True)
+    thread.start()
+    try:
+        while True:
+            item = q.get()
+            if item is _END:
+                return
+            if isinstance(item, _Failure):
+                raise item.error
+            yield item
+    finally:
+        stop.set()
+        thread.join()
+
+
+class WriteBehind:
+    """Call `sink(*args)` in a background thread, at most `depth` calls queued.
+
+    `submit` re-raises an error from an earlier call; `close` waits for the queue to drain and
+    re-raises any error. Use as a context manager.
+    """
+
+    def __init__(self, sink: Callable[..., None], depth: int = 4):
+        self._sink = sink
+        self._q: queue.Queue = queue.Queue(maxsize=max(1, depth))
+        self._error: BaseException | None = None
+        self._thread = threading.Thread(target=self._work, name="redact-encode", daemon=True)
+        self._thread.start()
+
+    def _work(self) -> None:
+        while True:
+            args = self._q.get()
+            if args is _END:
+                return
+            if self._error is None:
+                try:
+                    self._sink(*args)
+                except BaseException as e:
+                    self._error = e
+
+    def submit(self, *args) -> None:
+        if self._error is not None:
+            raise self._error
+        self._q.put(args)
+
+    def close(self) -> None:
+        if self._thread.is_alive():
+            self._q.put(_END)
+            self._thread.join()
+        if self._error is not None:
+            raise self._error
+
+    def __enter__(self) -> "WriteBehind":
+        return self
+
+    def __exit__(self, exc_type, exc, tb) -> None:
+        if exc_type is None:
+            self.close()
+        else:  # stop quietly: the caller's error is the one to report
+            self._error = self._error or exc
+            self._q.put(_END)
+            self._thread.join()
