@@ -73,9 +73,16 @@ class ProcessSettings:
             raise InputError(f"crf must be between 0 and 51, got {self.crf}")
 
     def record(self) -> dict:
-        """The settings as plain JSON values (for the log and the predicate)."""
+        """The settings as plain JSON values (for the log and the predicate).
+
+        threads is recorded as the count actually used: onnxruntime's sums run in a different
+        order with a different thread count, which can move a keypoint by one in the last decimal,
+        so a byte-identical rerun needs the same count.
+        """
+        from redact.models import default_threads
+
         d = asdict(self)
-        d.pop("threads")  # affects speed only, never the output
+        d["threads"] = self.threads or default_threads()
         return d
 
 
@@ -182,9 +189,11 @@ class _Lookback:
                                        self.region_settings)
                 if region.empty:
                     continue
-                mask = region.mask(image.shape)
+                sub = region.crop_mask()
                 for item in self.pending:
-                    item[2] = self.obscurer.apply(item[2], mask, region.size)
+                    if not item[2].flags.writeable:
+                        item[2] = item[2].copy()
+                    self.obscurer.apply_into(item[2], region.rect, sub, region.size)
                     stats.lookback_frames.append(item[0])
         self.pending.append([index, pts, image])
         out = []
@@ -264,7 +273,8 @@ def _run(source, info, out_dir, staging, video_final, pkg_final, signer, setting
     video_tmp = staging / VIDEO_NAME
     log = TransformLog(pkg_dir / package.LOG)
     log.append("probe", **{k: v for k, v in info.as_dict().items() if k != "path"}, name=source.name)
-    log.append("model", id=entry.id, sha256=entry.sha256, licence=entry.licence, runtime="onnxruntime-cpu")
+    log.append("model", id=entry.id, sha256=entry.sha256, licence=entry.licence, runtime="onnxruntime-cpu",
+               threads=settings.record()["threads"])
     log.append("detection", **asdict(settings.pose), detect_every=settings.detect_every)
     log.append("tracking", **asdict(tracker_cfg), coast_seconds=settings.coast_seconds)
     if plate is not None:

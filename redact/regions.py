@@ -78,6 +78,14 @@ class Region:
             _fill(out, self.polygons)
         return out.astype(bool)
 
+    def crop_mask(self) -> np.ndarray:
+        """The region as a bool mask over its own rect only [y1-y0, x1-x0] (cheap for big frames)."""
+        x0, y0, x1, y1 = self.rect
+        out = np.zeros((max(0, y1 - y0), max(0, x1 - x0)), np.uint8)
+        if not self.empty:
+            _fill(out, tuple(p - (x0, y0) for p in self.polygons))
+        return out.astype(bool)
+
 
 def _padded_hull(points: np.ndarray, pad: float) -> np.ndarray:
     """Convex hull [K,2] of points [N,2] grown by a disc of radius pad (the disc is circumscribed)."""

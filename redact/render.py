@@ -51,10 +51,25 @@ class Obscurer(Protocol):
     """One obscuring style: `apply` returns a new image with the masked pixels replaced.
 
     size is the region's characteristic size in pixels (its shorter side); by default the
-    shorter side of the mask's bounding rectangle.
+    shorter side of the mask's bounding rectangle. `apply_into` does the same in place on an
+    image the caller owns, touching only rect (x0, y0, x1, y1) where sub_mask [y1-y0, x1-x0] is
+    set: the renderer's fast path, which never builds full-frame masks or copies.
     """
 
     def apply(self, image: np.ndarray, mask: np.ndarray, size: float | None = None) -> np.ndarray: ...
+
+    def apply_into(self, out: np.ndarray, rect: tuple[int, int, int, int], sub_mask: np.ndarray,
+                   size: float) -> None: ...
+
+
+def _apply_copy(style, image: np.ndarray, mask: np.ndarray, size: float | None) -> np.ndarray:
+    """`apply` in terms of `apply_into`: copy once, work inside the mask's bounding rectangle."""
+    img, m, b, s = _region(image, mask, size)
+    out = img.copy()
+    if b is not None:
+        x0, y0, x1, y1 = b
+        style.apply_into(out, b, m[y0:y1, x0:x1], s)
+    return out
 
 
 def _region(image: np.ndarray, mask: np.ndarray, size: float | None):
@@ -79,10 +94,11 @@ class Fill:
         self.grey = int(grey)
 
     def apply(self, image: np.ndarray, mask: np.ndarray, size: float | None = None) -> np.ndarray:
-        img, m, _, _ = _region(image, mask, size)
-        out = img.copy()
-        out[m] = self.grey
-        return out
+        return _apply_copy(self, image, mask, size)
+
+    def apply_into(self, out, rect, sub_mask, size) -> None:
+        x0, y0, x1, y1 = rect
+        out[y0:y1, x0:x1][sub_mask] = self.grey
 
 
 class Blur:
@@ -100,13 +116,12 @@ class Blur:
         self.min_sigma = float(min_sigma)
 
     def apply(self, image: np.ndarray, mask: np.ndarray, size: float | None = None) -> np.ndarray:
-        img, m, b, s = _region(image, mask, size)
-        out = img.copy()
-        if b is None:
-            return out
-        x0, y0, x1, y1 = b
-        crop = img[y0:y1, x0:x1]
-        sigma = max(self.min_sigma, self.fraction * s)
+        return _apply_copy(self, image, mask, size)
+
+    def apply_into(self, out, rect, sub_mask, size) -> None:
+        x0, y0, x1, y1 = rect
+        crop = out[y0:y1, x0:x1].copy()
+        sigma = max(self.min_sigma, self.fraction * size)
         factor = max(1.0, sigma / 2.0)
         h, w = crop.shape[:2]
         sw, sh = max(1, round(w / factor)), max(1, round(h / factor))
@@ -118,9 +133,7 @@ class Blur:
         small = cv2.GaussianBlur(small, (0, 0), sigmaX=small_sigma, sigmaY=small_sigma,
                                  borderType=cv2.BORDER_REFLECT)
         blurred = cv2.resize(small, (w, h), interpolation=cv2.INTER_LINEAR)
-        sub = m[y0:y1, x0:x1]
-        out[y0:y1, x0:x1][sub] = blurred[sub]
-        return out
+        out[y0:y1, x0:x1][sub_mask] = blurred[sub_mask]
 
 
 class Pixelate:
@@ -133,20 +146,17 @@ class Pixelate:
         self.min_block = int(min_block)
 
     def apply(self, image: np.ndarray, mask: np.ndarray, size: float | None = None) -> np.ndarray:
-        img, m, b, s = _region(image, mask, size)
-        out = img.copy()
-        if b is None:
-            return out
-        x0, y0, x1, y1 = b
-        block = max(self.min_block, int(math.ceil(s / self.blocks)))
-        crop = img[y0:y1, x0:x1]
+        return _apply_copy(self, image, mask, size)
+
+    def apply_into(self, out, rect, sub_mask, size) -> None:
+        x0, y0, x1, y1 = rect
+        block = max(self.min_block, int(math.ceil(size / self.blocks)))
+        crop = out[y0:y1, x0:x1].copy()
         h, w = crop.shape[:2]
         sw, sh = max(1, math.ceil(w / block)), max(1, math.ceil(h / block))
         small = cv2.resize(crop, (sw, sh), interpolation=cv2.INTER_AREA)
         big = cv2.resize(small, (w, h), interpolation=cv2.INTER_NEAREST)
-        sub = m[y0:y1, x0:x1]
-        out[y0:y1, x0:x1][sub] = big[sub]
-        return out
+        out[y0:y1, x0:x1][sub_mask] = big[sub_mask]
 
 
 class PlateFill:
@@ -163,12 +173,15 @@ class PlateFill:
         return self._sized[(h, w)]
 
     def apply(self, image: np.ndarray, mask: np.ndarray, size: float | None = None) -> np.ndarray:
-        img, m, _, _ = _region(image, mask, size)
-        p = self._at(*img.shape[:2])
-        use_plate = m & p.valid
-        out = self.fallback.apply(img, m & ~p.valid, size)
-        out[use_plate] = p.image[use_plate]
-        return out
+        return _apply_copy(self, image, mask, size)
+
+    def apply_into(self, out, rect, sub_mask, size) -> None:
+        x0, y0, x1, y1 = rect
+        p = self._at(*out.shape[:2])
+        valid = p.valid[y0:y1, x0:x1]
+        self.fallback.apply_into(out, rect, sub_mask & ~valid, size)
+        use_plate = sub_mask & valid
+        out[y0:y1, x0:x1][use_plate] = p.image[y0:y1, x0:x1][use_plate]
 
 
 class StickFigure:
@@ -274,7 +287,7 @@ def render_frame(image: np.ndarray, tracks: Tracks, style: RenderSettings,
     for region in track_regions(tracks, img.shape, style.regions):
         if region.empty:
             continue
-        out = ob.apply(out, region.mask(img.shape), region.size)
+        ob.apply_into(out, region.rect, region.crop_mask(), region.size)
     if style.draws_figures and len(tracks):
         fig = StickFigure(style.figure_threshold, style.line_width)
         out = fig.draw(out, tracks.keypoints)

