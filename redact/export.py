@@ -1,5 +1,8 @@
 """Research export of a package's skeletons.jsonl: per-track NumPy arrays (.npz) or COCO keypoint results.
 
+The package is a directory or a .tar read in place (redact.package.open_package); with trusted keys
+it is verified first (redact.verify) and the bytes exported are checked against the signed hash.
+
 The exported data are what the package holds: pseudonymised personal data, not anonymous
 (GDPR Art. 4(5), Recital 26); people can be re-identified from skeletons (GaitPT, arXiv 2308.10623).
 
@@ -20,16 +23,18 @@ COCO keypoints are pixels: rows in frame or track units are refused for this for
 
 from __future__ import annotations
 
+import hashlib
 import json
 import os
 import secrets
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Iterable, Iterator
+from typing import Iterable, Iterator, Sequence
 
 import numpy as np
 
-from redact.errors import InputError, OutputError, PackageError
+from redact.errors import InputError, OutputError, PackageError, VerificationFailed
+from redact.package import open_package
 from redact.privacy import decode_row_extras
 from redact.rows import decode_row
 from redact.skeleton import KEYPOINT_NAMES, LINKS_1BASED
@@ -38,19 +43,56 @@ FORMATS = ("npz", "coco")
 SKELETONS = "skeletons.jsonl"
 
 
-def read_package_lines(package: str | Path) -> Iterator[bytes]:
-    """The lines of PACKAGE/skeletons.jsonl. (To be replaced by the verified package reader.)"""
-    path = Path(package) / SKELETONS
-    if not Path(package).is_dir():
-        raise InputError(f"{package}: not a package directory")
-    if path.is_symlink() or not path.is_file():
-        raise PackageError(f"{path}: missing or not a regular file")
+@dataclass(frozen=True)
+class PackageSource:
+    """The skeleton lines of a package and what was checked: `lines` streams skeletons.jsonl once;
+    with trusted keys the package was verified first and `predicate` / `key_id` are the signed ones."""
 
-    def lines() -> Iterator[bytes]:
-        with open(path, "rb") as f:
-            yield from f
+    lines: Iterator[bytes]
+    verified: bool
+    key_id: str | None = None
+    predicate: dict | None = None
 
-    return lines()
+
+def _stream(package: Path, want: dict | None) -> Iterator[bytes]:
+    """The lines of skeletons.jsonl read in place (directory or .tar); with `want` (the signed subject),
+    the bytes read are hashed and must match it, or VerificationFailed is raised at the end (before
+    any export is renamed into place): the package may change between verification and reading."""
+    with open_package(package) as reader:
+        if SKELETONS not in reader.files:
+            raise PackageError(f"{package}: {SKELETONS} is missing or not a regular file")
+        h, size = hashlib.sha256(), 0
+        with reader.open(SKELETONS) as f:
+            for line in f:
+                h.update(line)
+                size += len(line)
+                yield line
+    if want is not None and (h.hexdigest() != want["digest"]["sha256"] or size != want["annotations"]["bytes"]):
+        raise VerificationFailed([f"{SKELETONS}: changed after verification (SHA-256 differs from the signed one)"])
+
+
+def read_package(package: str | Path, trusted_keys: Sequence | None = None) -> PackageSource:
+    """Open PACKAGE (a directory or .tar) for export. With trusted keys (redact.signing.PublicKey) it
+    is verified first (redact.verify: signature, file set, hashes, log) and VerificationFailed lists
+    every problem; without, the lines are read unverified."""
+    package = Path(package)
+    if not (package.is_dir() or package.is_file()):
+        raise InputError(f"{package}: not a package directory or .tar file")
+    if not trusted_keys:
+        return PackageSource(_stream(package, None), False)
+    from redact.verify import verify_package
+
+    result = verify_package(package, list(trusted_keys))
+    want = next((s for s in result.subjects if s["name"] == SKELETONS and s["annotations"]["role"] == "package-file"),
+                None)
+    if want is None:
+        raise VerificationFailed([f"{SKELETONS}: not named in the signed statement"])
+    return PackageSource(_stream(package, want), True, result.key_id, result.predicate)
+
+
+def read_package_lines(package: str | Path, trusted_keys: Sequence | None = None) -> Iterator[bytes]:
+    """The lines of PACKAGE/skeletons.jsonl (directory or .tar), verified first when keys are given."""
+    return read_package(package, trusted_keys).lines
 
 
 @dataclass(frozen=True)
@@ -222,17 +264,32 @@ def default_gt_path(out: str | Path) -> Path:
 
 
 def export_package(package: str | Path, fmt: str, out: str | Path, gt_out: str | Path | None = None,
-                   frame_size: tuple[int, int] | None = None, force: bool = False) -> dict:
-    """Export PACKAGE's skeletons as fmt ("npz" or "coco") to out; return a summary dict."""
+                   frame_size: tuple[int, int] | None = None, force: bool = False,
+                   trusted_keys: Sequence | None = None) -> dict:
+    """Export PACKAGE's (directory or .tar) skeletons as fmt ("npz" or "coco") to out; return a summary.
+
+    With trusted_keys the package is verified first (VerificationFailed on any problem) and, for
+    coco, frame_size defaults to the signed source width and height.
+    """
     if fmt not in FORMATS:
         raise InputError(f"format: {fmt!r} is not one of {', '.join(FORMATS)}")
     out = Path(out)
     pkg = Path(package).resolve()
-    if pkg in out.resolve().parents or (gt_out is not None and pkg in Path(gt_out).resolve().parents):
-        raise OutputError(f"{out}: would write inside the package; choose a place outside it")
-    lines = read_package_lines(package)
+    for target in (out, None if gt_out is None else Path(gt_out)):
+        if target is not None and (target.resolve() == pkg or pkg in target.resolve().parents):
+            raise OutputError(f"{target}: would write inside the package (or over it); choose a place outside it")
+    if fmt == "npz" and gt_out is not None:
+        raise InputError("gt_out: only applies to the coco format")
+    src = read_package(package, trusted_keys)
     if fmt == "npz":
-        if gt_out is not None:
-            raise InputError("gt_out: only applies to the coco format")
-        return export_npz(lines, out, force)
-    return export_coco(lines, out, gt_out, frame_size, force)
+        summary = export_npz(src.lines, out, force)
+    else:
+        if frame_size is None and src.predicate is not None:
+            s = src.predicate.get("source") if isinstance(src.predicate.get("source"), dict) else {}
+            w, h = s.get("width"), s.get("height")
+            if all(isinstance(v, int) and not isinstance(v, bool) and v > 0 for v in (w, h)):
+                frame_size = (w, h)
+        summary = export_coco(src.lines, out, gt_out, frame_size, force)
+    summary["verified"] = src.verified
+    summary["key_id"] = src.key_id
+    return summary

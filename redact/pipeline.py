@@ -101,6 +101,7 @@ class ProcessResult:
     stopped_early: str | None
     key_id: str
     source_sha256: str
+    audit: dict | None = None
 
     @property
     def fps(self) -> float:
@@ -231,13 +232,15 @@ def _build_plate(source: Path, estimator: PoseEstimator, settings: ProcessSettin
 def process_video(source: str | Path, out_dir: str | Path, signer, settings: ProcessSettings = ProcessSettings(),
                   disclosure: dict | None = None, privacy=None,
                   progress: Callable[[int, int], None] | None = None,
-                  estimator: PoseEstimator | None = None) -> ProcessResult:
+                  estimator: PoseEstimator | None = None, audit: bool = False) -> ProcessResult:
     """Redact every person in `source` and write the signed skeleton package; see the module doc.
 
     signer: a redact.signing.Signer. disclosure: optional recipient/organisation/purpose/date/
     request_reference. privacy: optional redact.privacy.PrivacyOptions applied to the skeleton
     rows. progress(frames_done, frames_expected) is called after each frame. estimator: a
     PoseEstimator to use instead of the bundled default (tests inject faults this way).
+    audit: scan the redacted video (and the source) with the independent detectors of
+    redact.audit before signing, and record the result in the log and the statement.
     """
     from redact.models import get_model
     from redact.video import VideoReader, VideoWriter, copy_audio, probe
@@ -261,13 +264,14 @@ def process_video(source: str | Path, out_dir: str | Path, signer, settings: Pro
     try:
         return _run(source, info, out_dir, staging, video_final, pkg_final, signer, settings, tracker_cfg,
                     estimator, entry, obscurer, plate, disclosure, privacy, progress, started,
-                    VideoReader, VideoWriter, copy_audio)
+                    VideoReader, VideoWriter, copy_audio, audit)
     finally:
         shutil.rmtree(staging, ignore_errors=True)
 
 
 def _run(source, info, out_dir, staging, video_final, pkg_final, signer, settings, tracker_cfg, estimator,
-         entry, obscurer, plate, disclosure, privacy, progress, started, VideoReader, VideoWriter, copy_audio):
+         entry, obscurer, plate, disclosure, privacy, progress, started, VideoReader, VideoWriter, copy_audio,
+         audit=False):
     pkg_dir = staging / PACKAGE_NAME
     pkg_dir.mkdir()
     video_tmp = staging / VIDEO_NAME
@@ -346,6 +350,12 @@ def _run(source, info, out_dir, staging, video_final, pkg_final, signer, setting
     log.append("encode", codec="h264", encoder="libx264", crf=settings.crf, frames=writer.frames_written,
                audio="kept" if (settings.keep_audio and info.has_audio) else ("dropped" if info.has_audio else "none"),
                container_metadata="not copied", source_metadata_keys=list(info.metadata_keys))
+    audit_result = None
+    if audit:
+        from redact.audit import AuditSettings, audit_summary, audit_video
+
+        audit_result = audit_summary(audit_video(video_tmp, source, AuditSettings(threads=settings.threads)))
+        log.append("audit", **audit_result)
     if disclosure:
         log.disclosure(**disclosure)
 
@@ -360,6 +370,8 @@ def _run(source, info, out_dir, staging, video_final, pkg_final, signer, setting
         "disclosure": dict(disclosure or {}),
         "review": {"ranges": len(review), "flagged_frames": monitor.flagged},
         "faults": {"frames": len(stats.faults)},
+        "audit": None if audit_result is None else {k: audit_result[k] for k in
+                                                    ("passed", "faces", "persons", "source_faces", "survived")},
         "tool": {"name": "redact", "version": __version__},
         "created": utc_now(),
     }
@@ -369,7 +381,7 @@ def _run(source, info, out_dir, staging, video_final, pkg_final, signer, setting
     os.rename(signed, pkg_final)  # last: a package in place means the run completed
     return ProcessResult(out_dir, video_final, pkg_final, n_frames, len(summaries), tuple(stats.faults),
                          tuple(review), time.perf_counter() - started, reader.stopped_early,
-                         signer.key_id, reader.sha256)
+                         signer.key_id, reader.sha256, audit_result)
 
 
 def _tracks_json(summaries) -> bytes:
@@ -380,16 +392,8 @@ def _tracks_json(summaries) -> bytes:
 
 
 def _apply_privacy(pkg_dir: Path, privacy, info, log: TransformLog) -> None:
-    """Rewrite skeletons.jsonl through the de-identification options (see redact.privacy)."""
-    from redact.privacy import apply_privacy
+    """Rewrite skeletons.jsonl and tracks.json through the de-identification options (redact.privacy)."""
+    from redact.derive import rewrite_skeleton_files
 
-    src = pkg_dir / package.SKELETONS
-    tmp = pkg_dir / ".skeletons.tmp"
-    with open(src, "rb") as f, open(tmp, "wb") as out:
-        result = apply_privacy(rows.read_rows(f), privacy, (info.width, info.height), float(info.fps))
-        summary = {}
-        for line in result:
-            out.write(line)
-        summary = getattr(result, "summary", summary)
-    os.replace(tmp, src)
+    summary = rewrite_skeleton_files(pkg_dir, privacy, (info.width, info.height), float(info.fps))
     log.append("privacy", **privacy.to_record(), summary=summary)

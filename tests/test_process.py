@@ -241,3 +241,36 @@ def test_existing_outputs_are_never_overwritten(crossing_clip, tmp_path, key):
     r = CliRunner().invoke(main, ["process", str(crossing_clip.path), "--out", str(out), "--key", str(key)])
     assert r.exit_code == 2 and "already exists" in r.stderr
     assert _leftovers(out) == ["package"]
+
+
+def test_cli_process_with_privacy_options_is_signed_and_applied(crossing_clip, tmp_path, key):
+    out = tmp_path / "private-out"
+    r = CliRunner().invoke(main, ["process", str(crossing_clip.path), "--out", str(out), "--key", str(key),
+                                  "--drop-keypoints", "head", "--new-ids", "--quiet"])
+    assert r.exit_code == 0, r.output
+    rows = _rows(type("R", (), {"package": out / "package"}))
+    people = [p for row in rows for p in row.tracks.keypoints]
+    assert people and all((kp[:5] == 0).all() for kp in people)  # COCO-17 indices 0-4: nose, eyes, ears
+    ids = {int(i) for row in rows for i in row.tracks.ids}
+    tracks = json.loads((out / "package" / "tracks.json").read_text())["tracks"]
+    assert ids == {t["id"] for t in tracks}
+    v = CliRunner().invoke(main, ["verify", str(out / "package"), "--key", str(key.with_name("t.public.pem")),
+                                  "--json"])
+    assert v.exit_code == 0, v.output
+    envelope = json.loads((out / "package" / "envelope.json").read_text())
+    import base64
+    statement = json.loads(base64.b64decode(envelope["payload"]))
+    assert statement["predicate"]["privacy"]["new_ids"] is True
+
+
+def test_cli_process_audit_is_recorded_in_the_log(crossing_clip, tmp_path, key):
+    """`process --audit` runs redact.audit (an independent face detector, MediaPipe BlazeFace, and
+    the pose model at a larger size) on its own output and the source, and logs the result."""
+    out = tmp_path / "audited"
+    r = CliRunner().invoke(main, ["process", str(crossing_clip.path), "--out", str(out), "--key", str(key),
+                                  "--audit", "--json", "--quiet"])
+    assert r.exit_code == 0, r.output
+    audit = json.loads(r.stdout)["audit"]
+    assert audit["passed"] and audit["faces"] == 0 and audit["source_faces"] > 0 and audit["survived"] == 0
+    log = [json.loads(line) for line in (out / "package" / "log.jsonl").read_text().splitlines()]
+    assert [e["survived"] for e in log if e["kind"] == "audit"] == [0]

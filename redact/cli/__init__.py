@@ -25,12 +25,17 @@ def main() -> None:
 # Each module defines its command(s) with @main.command(); keep this list sorted by workflow.
 COMMAND_MODULES = (
     "cmd_models",
+    "cmd_tracks",
     "cmd_process",
+    "cmd_batch",
     "cmd_keys",
     "cmd_verify",
     "cmd_inspect",
+    "cmd_report",
+    "cmd_derive",
     "cmd_export",
     "cmd_frameproof",
+    "cmd_audit",
 )
 
 for _name in COMMAND_MODULES:

@@ -28,7 +28,7 @@ def _frame_size(ctx, param, value: str | None):
     return w, h
 
 
-@main.command("export", help=f"""Export a package's skeletons for research tools.
+@main.command("export", help=f"""Export a package's skeletons (a folder or .tar) for research tools.
 
 npz: per track, track_<id>_keypoints [T,17,3] float32 (x, y, confidence), _frames [T], _times [T],
 _boxes, _scores, _observed; load with numpy.load. coco: COCO keypoint results JSON plus a
@@ -36,9 +36,15 @@ ground-truth-style file of images and the COCO-17 category (--gt-out), loadable 
 
 {EXPORT_CAUTION}""", epilog="""\b
 Examples:
-  redact export out/package --format npz --out tracks.npz
-  redact export out/package --format coco --out results.json --frame-size 1920x1080""")
-@click.argument("package", type=click.Path(exists=True, file_okay=False, path_type=Path))
+  redact export out/package --key steward.public.pem --format npz --out tracks.npz
+  redact export out/package.tar --key steward.public.pem --format coco --out results.json
+  redact export out/package --format coco --out results.json --frame-size 1920x1080
+
+With --key the package is verified first (exit 1 when it does not verify) and COCO images get
+the signed frame size; without it the package is read unverified.""")
+@click.argument("package", type=click.Path(exists=True, path_type=Path))
+@click.option("--key", "keys", multiple=True, type=click.Path(exists=True, dir_okay=False, path_type=Path),
+              help="Trusted public key (PEM): verify the package before exporting; repeat for several.")
 @click.option("--format", "fmt", required=True, type=click.Choice(["npz", "coco"]), help="Output format.")
 @click.option("--out", required=True, type=click.Path(dir_okay=False, path_type=Path), help="File to write.")
 @click.option("--gt-out", type=click.Path(dir_okay=False, path_type=Path), default=None,
@@ -48,14 +54,19 @@ Examples:
 @click.option("--force", is_flag=True, help="Overwrite existing output files.")
 @click.option("--json", "as_json", is_flag=True, help="Print the summary as one JSON document.")
 @library_errors
-def export_cmd(package: Path, fmt: str, out: Path, gt_out: Path | None, frame_size, force: bool,
-               as_json: bool) -> None:
+def export_cmd(package: Path, keys: tuple[Path, ...], fmt: str, out: Path, gt_out: Path | None, frame_size,
+               force: bool, as_json: bool) -> None:
     from redact.errors import InputError
     from redact.export import export_package
+    from redact.signing import load_public_key
 
     if fmt == "npz" and (gt_out is not None or frame_size is not None):
         raise InputError("--gt-out and --frame-size only apply to --format coco")
-    summary = export_package(package, fmt, out, gt_out=gt_out, frame_size=frame_size, force=force)
+    trusted = [load_public_key(k) for k in keys]
+    summary = export_package(package, fmt, out, gt_out=gt_out, frame_size=frame_size, force=force,
+                             trusted_keys=trusted or None)
+    if not trusted:
+        click.echo("note: the package was not verified (use --key PUB.pem)", err=True)
     click.echo(f"caution: {EXPORT_CAUTION}", err=True)
     if as_json:
         echo_json(summary)

@@ -14,6 +14,7 @@ from redact.cli import CAUTION, main
 from redact.cli.cmd_keys import PASSPHRASE_ENV, read_passphrase
 from redact.cli.common import echo_json, library_errors
 from redact.cli.options import disclosure_options, pipeline_options
+from redact.cli.privacy_options import privacy_options
 from redact.errors import InputError
 
 DEMO_PASSPHRASE = "demo only - not a secret"
@@ -52,6 +53,7 @@ def _summary(result) -> dict:
                            "reasons": list(r.reasons)} for r in result.review],
         "frames_per_second": round(result.fps, 2), "seconds": round(result.seconds, 2),
         "stopped_early": result.stopped_early, "key_id": result.key_id, "source_sha256": result.source_sha256,
+        "audit": result.audit,
     }
 
 
@@ -69,12 +71,14 @@ def _print_summary(result) -> None:
         click.echo("no range flagged; a person must still review the whole video before disclosure")
 
 
-def _run(source: Path, out: Path, signer, settings, disclosure, as_json: bool, quiet: bool):
+def _run(source: Path, out: Path, signer, settings, disclosure, as_json: bool, quiet: bool, privacy=None,
+         audit: bool = False):
     from redact.pipeline import process_video
 
     progress = _Progress(quiet or as_json)
     try:
-        result = process_video(source, out, signer, settings, disclosure=disclosure, progress=progress)
+        result = process_video(source, out, signer, settings, disclosure=disclosure, privacy=privacy,
+                               progress=progress, audit=audit)
     finally:
         progress.close()
     if result.stopped_early:
@@ -84,6 +88,15 @@ def _run(source: Path, out: Path, signer, settings, disclosure, as_json: bool, q
         echo_json(_summary(result))
     else:
         _print_summary(result)
+    if result.audit is not None:
+        a = result.audit
+        verdict = "passed" if a["passed"] else "FOUND SOMETHING"
+        click.echo(f"independent audit {verdict}: faces {a['faces']}, persons {a['persons']}, source faces "
+                   f"surviving {a['survived']} of {a['source_faces']} (recorded in the log)", err=True)
+        if not a["passed"]:
+            click.echo("error: the audit found faces or people in the redacted video; the outputs are written "
+                       "but must not be disclosed before review (see `redact audit`)", err=True)
+            sys.exit(1)
     return result
 
 
@@ -103,11 +116,17 @@ overwritten; an interrupted run leaves only a hidden .redact-partial-* folder.
 @click.option("--key", "key", required=True, type=click.Path(path_type=Path),
               help="Private signing key (PKCS#8 PEM from `redact keygen`).")
 @pipeline_options
+@privacy_options
 @disclosure_options
+@click.option("--audit", is_flag=True,
+              help="After redacting, scan the redacted video and the source with independent detectors "
+                   "(a face detector and the pose model at a larger size); exit 1 if anything is found. "
+                   "A clean audit does not replace human review.")
 @click.option("--json", "as_json", is_flag=True, help="Print one JSON summary on stdout.")
 @click.option("--quiet", is_flag=True, help="No progress line.")
 @library_errors
-def process(source: Path, out: Path, key: Path, settings, disclosure, as_json: bool, quiet: bool) -> None:
+def process(source: Path, out: Path, key: Path, settings, privacy, disclosure, audit: bool, as_json: bool,
+            quiet: bool) -> None:
     """Obscure every person in a video and write a signed skeleton-only package.
 
     Each person is tracked and obscured in every frame, including frames where the detector
@@ -119,7 +138,7 @@ def process(source: Path, out: Path, key: Path, settings, disclosure, as_json: b
     if not source.exists():
         raise InputError(f"{source}: no such file")
     signer = load_private_key(key, read_passphrase(confirm=False))
-    _run(source, out, signer, settings, disclosure, as_json, quiet)
+    _run(source, out, signer, settings, disclosure, as_json, quiet, privacy=privacy, audit=audit)
 
 
 def demo_clip() -> Path:

@@ -18,6 +18,9 @@ from redact.errors import ModelError
 
 MODELS_DIR = Path(__file__).resolve().parent
 DEFAULT_POSE_MODEL = "yolo11n-pose"
+DEFAULT_FACE_MODEL = "face-detector-full-range"
+# The bundled model each task uses when no id is given (see models_manifest/).
+DEFAULT_MODELS = {"pose": DEFAULT_POSE_MODEL, "face-detection": DEFAULT_FACE_MODEL}
 
 
 @dataclass(frozen=True)
@@ -62,7 +65,7 @@ def list_models() -> list[ModelEntry]:
 
 def get_model(model_id: str | None = None, task: str = "pose") -> ModelEntry:
     """The manifest of a model by id, or the default for a task."""
-    wanted = model_id or (DEFAULT_POSE_MODEL if task == "pose" else None)
+    wanted = model_id or DEFAULT_MODELS.get(task)
     for m in list_models():
         if (wanted and m.id == wanted) or (not wanted and m.task == task):
             return m

@@ -1,0 +1,72 @@
+"""`redact derive`: a new signed package from a verified one, with de-identification options applied."""
+
+from __future__ import annotations
+
+import hashlib
+from pathlib import Path
+
+import click
+
+from redact.cli import main
+from redact.cli.cmd_keys import PASSPHRASE_ENV, read_passphrase
+from redact.cli.common import echo_json, library_errors
+from redact.cli.options import disclosure_options
+from redact.cli.privacy_options import PRIVACY_CAUTION, privacy_options
+
+
+@main.command("derive", epilog=f"""\b
+Example:
+  redact derive out/package --key steward.public.pem --sign-key steward.private.pem \\
+      --out share-2025-06 --drop-keypoints head --normalise-proportions \\
+      --noise-px 2 --target-fps 10 --new-ids --relative-time \\
+      --recipient "Gait lab" --purpose "research agreement 17"
+
+The parent is verified first (signature, every file, the log) and refused when anything is
+wrong. The new package's log starts with the SHA-256 of the parent's signed statement, its key
+id and log head; the options are recorded in the new signed statement. The key passphrase is
+read from ${PASSPHRASE_ENV} or prompted (hidden).
+
+\b
+Exit status: 0 written, 1 the parent does not verify, 2 usage or input error.
+
+Caution: {PRIVACY_CAUTION} Share it only as your data-protection officer allows.""")
+@click.argument("package", type=click.Path(exists=True, path_type=Path))
+@click.option("--key", "keys", multiple=True, required=True,
+              type=click.Path(exists=True, dir_okay=False, path_type=Path),
+              help="Trusted public key (PEM) of the parent package; repeat for several.")
+@click.option("--sign-key", required=True, type=click.Path(exists=True, dir_okay=False, path_type=Path),
+              help="Private key (PKCS#8 PEM from `redact keygen`) that signs the new package.")
+@click.option("--out", required=True, type=click.Path(path_type=Path),
+              help="The new package (a folder, or a .tar with --archive); must not exist.")
+@privacy_options
+@disclosure_options
+@click.option("--archive", is_flag=True, help="Write the new package as one .tar instead of a folder.")
+@click.option("--json", "as_json", is_flag=True, help="Print one JSON summary on stdout.")
+@library_errors
+def derive_cmd(package: Path, keys: tuple[Path, ...], sign_key: Path, out: Path, privacy, disclosure,
+               archive: bool, as_json: bool) -> None:
+    """Make a new signed, skeleton-only package from PACKAGE (a folder or .tar) with its skeletons
+    de-identified: dropped keypoints, standard body proportions, relative coordinates, fewer frames,
+    coarser numbers, noise, new track ids, relative time.
+    """
+    from redact.derive import derive
+    from redact.errors import InputError
+    from redact.signing import load_private_key, load_public_key
+
+    if privacy is None:
+        raise InputError("no de-identification option given; choose at least one (see --help)")
+    trusted = [load_public_key(k) for k in keys]
+    signer = load_private_key(sign_key, read_passphrase(confirm=False))
+    result = derive(package, out, trusted, signer, privacy, disclosure, archive=archive)
+    click.echo(f"caution: {PRIVACY_CAUTION}", err=True)
+    if as_json:
+        echo_json({"package": str(result.path), "key_id": result.key_id,
+                   "statement_sha256": hashlib.sha256(result.payload).hexdigest(),
+                   "parent": result.parent, "privacy": result.privacy,
+                   "summary": result.summary})
+        return
+    s = result.summary
+    click.echo(f"derived package: {result.path}  (signed, key id {result.key_id})")
+    click.echo(f"parent statement sha256 {result.parent['statement_sha256']} (key id {result.parent['key_id']})")
+    click.echo(f"rows: {s.get('rows_in')} in, {s.get('rows_out')} out; tracks: {s.get('tracks_out')}; "
+               f"units {s.get('units')}")

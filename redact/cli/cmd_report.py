@@ -1,0 +1,92 @@
+"""`redact report`: write the disclosure report of a package as one self-contained HTML file."""
+
+from __future__ import annotations
+
+import os
+import sys
+from pathlib import Path
+
+import click
+
+from redact.cli import main
+from redact.cli.common import library_errors
+from redact.errors import OutputError
+
+
+def _check_output(out: Path, force: bool) -> None:
+    """Refuse an output that is a directory, already exists (without --force) or has no parent."""
+    if out.is_dir():
+        raise OutputError(f"-o {out} is a directory; give a file name such as report.html")
+    if os.path.lexists(out) and not force:
+        raise OutputError(f"{out} already exists; choose another -o or pass --force")
+    if not out.parent.is_dir():
+        raise OutputError(f"directory {out.parent} does not exist")
+
+
+def _write_atomic(out: Path, data: bytes, force: bool) -> None:
+    """Write to a hidden temporary name beside `out`, then rename: no partial report is left."""
+    _check_output(out, force)
+    tmp = out.with_name(f".{out.name}.tmp-{os.getpid()}")
+    try:
+        with open(tmp, "xb") as f:
+            f.write(data)
+            f.flush()
+            os.fsync(f.fileno())
+        os.replace(tmp, out)
+    except OSError as e:
+        raise OutputError(f"cannot write {out}: {e.strerror or e}") from None
+    finally:
+        if os.path.lexists(tmp):
+            os.unlink(tmp)
+
+
+@main.command("report", epilog="""\b
+Example:
+  redact report out/package --key steward.public.pem --video out/redacted.mp4 -o report.html
+  redact report out/package.tar --key steward.public.pem --source cam1.mp4 -o report.html
+
+\b
+The page needs no network and prints cleanly to PDF from a browser. Pictures of the ranges to
+review come only from the redacted video (--video); without it the report has no pictures.
+Exit status: 0 report written and the package verified; 1 report written but verification
+FAILED (the page says so at the top); 2 usage error, nothing written.
+Skeleton data is pseudonymised, not anonymous; a person must review before disclosure.""")
+@click.argument("package", type=click.Path(path_type=Path))
+@click.option("--key", "keys", multiple=True, required=True, type=click.Path(dir_okay=False, path_type=Path),
+              help="Trusted public key (PEM); repeat for several. At least one is required.")
+@click.option("--video", type=click.Path(dir_okay=False, path_type=Path),
+              help="The REDACTED video: checked against the package, and the source of the pictures.")
+@click.option("--source", type=click.Path(dir_okay=False, path_type=Path),
+              help="The original video: only its SHA-256 and size are checked; it is never shown.")
+@click.option("-o", "--output", "output", required=True, type=click.Path(path_type=Path),
+              help="Where to write the HTML report.")
+@click.option("--force", is_flag=True, help="Replace an existing report file.")
+@library_errors
+def report(package: Path, keys: tuple[Path, ...], video: Path | None, source: Path | None, output: Path,
+           force: bool) -> None:
+    """Verify PACKAGE and write a readable, printable disclosure report of it to -o FILE."""
+    from redact.errors import InputError
+    from redact.report import make_report
+    from redact.signing import load_public_key
+
+    for p, what in ((video, "--video"), (source, "--source")):
+        if p is not None and not p.is_file():
+            raise InputError(f"{what} {p} does not exist")
+    for p in (package, video, source, *keys):
+        if p is not None and os.path.lexists(output) and output.resolve() == p.resolve():
+            raise OutputError(f"-o {output} would overwrite an input")
+    _check_output(output, force)
+    trusted = [load_public_key(k) for k in keys]
+    result = make_report(package, trusted, video=video, source=source)
+    _write_atomic(output, result.html, force)
+    click.echo(str(output))
+    if result.verified:
+        click.echo(f"report written; package VALID, signed by key {result.key_id}", err=True)
+    else:
+        click.echo(f"report written; verification FAILED with {len(result.findings)} finding(s): see the report",
+                   err=True)
+    if video is None:
+        click.echo("note: no --video given, so the report has no pictures of the ranges to review", err=True)
+    click.echo("Skeleton data is pseudonymised, not anonymous; a person must review before disclosure.", err=True)
+    if not result.verified:
+        sys.exit(1)
