@@ -232,7 +232,8 @@ def _build_plate(source: Path, estimator: PoseEstimator, settings: ProcessSettin
 def process_video(source: str | Path, out_dir: str | Path, signer, settings: ProcessSettings = ProcessSettings(),
                   disclosure: dict | None = None, privacy=None,
                   progress: Callable[[int, int], None] | None = None,
-                  estimator: PoseEstimator | None = None, audit: bool = False) -> ProcessResult:
+                  estimator: PoseEstimator | None = None, audit: bool = False,
+                  plan: str | Path | None = None) -> ProcessResult:
     """Redact every person in `source` and write the signed skeleton package; see the module doc.
 
     signer: a redact.signing.Signer. disclosure: optional recipient/organisation/purpose/date/
@@ -241,6 +242,8 @@ def process_video(source: str | Path, out_dir: str | Path, signer, settings: Pro
     PoseEstimator to use instead of the bundled default (tests inject faults this way).
     audit: scan the redacted video (and the source) with the independent detectors of
     redact.audit before signing, and record the result in the log and the statement.
+    plan: a redaction plan file (docs/plan-format.md): people to leave visible, extra regions and
+    frames to obscure; validated before any output, its hash and every entry applied are logged.
     """
     from redact.models import get_model
     from redact.video import VideoReader, VideoWriter, copy_audio, probe
@@ -250,6 +253,12 @@ def process_video(source: str | Path, out_dir: str | Path, signer, settings: Pro
     info = probe(source)  # InputError for missing / not a video / zero frames
     video_final, pkg_final = _check_paths(source, out_dir, settings.archive)
     entry = get_model(task="pose")
+    plan_obj = None
+    if plan is not None:
+        from redact.plan import load_plan
+
+        plan_obj = load_plan(plan, info)
+        plan_obj.check_settings(settings, entry.sha256)
     if estimator is None:
         estimator = PoseEstimator.default(settings.pose, settings.threads)  # hash check before any output
     tracker_cfg = tracker_config_for(settings, float(info.fps))
@@ -264,14 +273,14 @@ def process_video(source: str | Path, out_dir: str | Path, signer, settings: Pro
     try:
         return _run(source, info, out_dir, staging, video_final, pkg_final, signer, settings, tracker_cfg,
                     estimator, entry, obscurer, plate, disclosure, privacy, progress, started,
-                    VideoReader, VideoWriter, copy_audio, audit)
+                    VideoReader, VideoWriter, copy_audio, audit, plan_obj)
     finally:
         shutil.rmtree(staging, ignore_errors=True)
 
 
 def _run(source, info, out_dir, staging, video_final, pkg_final, signer, settings, tracker_cfg, estimator,
          entry, obscurer, plate, disclosure, privacy, progress, started, VideoReader, VideoWriter, copy_audio,
-         audit=False):
+         audit=False, plan=None):
     pkg_dir = staging / PACKAGE_NAME
     pkg_dir.mkdir()
     video_tmp = staging / VIDEO_NAME
@@ -298,25 +307,38 @@ def _run(source, info, out_dir, staging, video_final, pkg_final, signer, setting
             open(pkg_dir / package.FRAMES, "wb") as frames_out:
         for frame in read_ahead(reader.frames(), depth=4):
             tracks: Tracks | None
+            extra: tuple[str, ...] = ()
             try:
                 if frame.corrupt:
                     raise RedactError("the decoder reported damaged data in this frame")
                 detect = frame.index % settings.detect_every == 0
                 poses = estimator.estimate(frame.image) if detect else None
                 tracks = tracker.update(poses, frame.t, frame.index)
-                out = render_frame(frame.image, tracks, settings.render, plate=plate, obscurer=obscurer)
+                hidden = tracks
+                if plan is None:
+                    out = render_frame(frame.image, tracks, settings.render, plate=plate, obscurer=obscurer)
+                else:
+                    decision = plan.decide(frame.index, frame.t, tracks, frame.image.shape)
+                    hidden = decision.obscure
+                    if decision.whole_frame:
+                        out = obscure_all(frame.image)
+                    else:
+                        out = render_frame(frame.image, hidden, settings.render, plate=plate, obscurer=obscurer)
+                        if decision.mask is not None:
+                            out = obscurer.apply(out, decision.mask)
+                    extra = ("kept_overlap",) if decision.overlap_ids else ()
                 status = rows.STATUS_OK
                 stats.people(frame.index, tracks)
             except Exception as e:  # fail closed: whatever went wrong, this frame shows nobody
                 out = obscure_all(frame.image)
-                tracks, status = None, rows.STATUS_FAULT
+                tracks, hidden, status = None, None, rows.STATUS_FAULT
                 stats.fault(frame.index, type(e).__name__)
             pts = frame.pts if frame.pts is not None else frame.index
-            for _, ready_pts, ready in lookback.push(frame.index, pts, out, tracks, stats):
+            for _, ready_pts, ready in lookback.push(frame.index, pts, out, hidden, stats):
                 encoder.submit(ready, ready_pts)
             skel.write(rows.encode_row(frame.index, frame.pts, frame.t, tracks or Tracks.empty(), status))
             qual.write(encode_quality_line(monitor.observe(frame.index, frame.t, frame.image, tracks,
-                                                           fault=tracks is None)))
+                                                           fault=tracks is None, extra=extra)))
             frames_out.write(frame.digest.hex().encode() + b"\n")
             n_frames += 1
             if progress is not None:
@@ -339,6 +361,9 @@ def _run(source, info, out_dir, staging, video_final, pkg_final, signer, setting
     log.append("review", rules=asdict(settings.review), ranges=len(review), flagged_frames=monitor.flagged)
 
     summaries = tracker.summary()
+    if plan is not None:  # before anything is renamed into place: a bad track id leaves no output
+        plan.check_end([s.id for s in summaries], reader.sha256)
+        log.append("plan", **plan.record(), applied=plan.applied())
     (pkg_dir / package.TRACKS).write_bytes(_tracks_json(summaries))
     if privacy is not None:
         _apply_privacy(pkg_dir, privacy, info, log)
@@ -370,6 +395,7 @@ def _run(source, info, out_dir, staging, video_final, pkg_final, signer, setting
         "disclosure": dict(disclosure or {}),
         "review": {"ranges": len(review), "flagged_frames": monitor.flagged},
         "faults": {"frames": len(stats.faults)},
+        "plan": None if plan is None else plan.record(),
         "audit": None if audit_result is None else {k: audit_result[k] for k in
                                                     ("passed", "faces", "persons", "source_faces", "survived")},
         "tool": {"name": "redact", "version": __version__},

@@ -31,7 +31,8 @@ BT601 = (0.299, 0.587, 0.114)
 #: Longer side of the grey image the measures are computed on.
 ANALYSIS_SIDE = 320
 
-REASONS: tuple[str, ...] = ("blurred", "coasting", "count_drop", "dark", "fault", "low_confidence", "low_contrast")
+REASONS: tuple[str, ...] = ("blurred", "coasting", "count_drop", "dark", "fault", "kept_overlap", "low_confidence",
+                            "low_contrast")
 
 
 @dataclass(frozen=True)
@@ -138,7 +139,7 @@ class QualityMonitor:
         self.flagged = 0
 
     def observe(self, frame: int, t: float, image: np.ndarray | None, tracks: Tracks | None,
-                fault: bool = False) -> FrameQuality:
+                fault: bool = False, extra: tuple[str, ...] = ()) -> FrameQuality:
         """Measure one frame. image [H,W,3] uint8 RGB, or None when it could not be decoded;
         tracks None for a frame whose processing failed. Frames must come in increasing order."""
         if self._last_frame is not None and frame <= self._last_frame:
@@ -181,6 +182,10 @@ class QualityMonitor:
             reasons.append("count_drop")
         if fault and r.fault:
             reasons.append("fault")
+        unknown = set(extra) - set(REASONS)
+        if unknown:
+            raise RedactError(f"quality: unknown review reason(s) {sorted(unknown)}")
+        reasons.extend(r_ for r_ in extra if r_ not in reasons)
         q = FrameQuality(int(frame), float(t), lm, ls, sh, people, observed, predicted, mean_conf, int(drop),
                          bool(fault), tuple(sorted(reasons)))
         self.frames += 1

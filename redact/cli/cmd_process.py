@@ -72,13 +72,13 @@ def _print_summary(result) -> None:
 
 
 def _run(source: Path, out: Path, signer, settings, disclosure, as_json: bool, quiet: bool, privacy=None,
-         audit: bool = False):
+         audit: bool = False, plan: Path | None = None):
     from redact.pipeline import process_video
 
     progress = _Progress(quiet or as_json)
     try:
         result = process_video(source, out, signer, settings, disclosure=disclosure, privacy=privacy,
-                               progress=progress, audit=audit)
+                               progress=progress, audit=audit, plan=plan)
     finally:
         progress.close()
     if result.stopped_early:
@@ -118,6 +118,10 @@ overwritten; an interrupted run leaves only a hidden .redact-partial-* folder.
 @pipeline_options
 @privacy_options
 @disclosure_options
+@click.option("--plan", "plan", type=click.Path(path_type=Path, dir_okay=False), default=None,
+              help="A redaction plan (JSON, see docs/plan-format.md): tracks to leave visible, e.g. the "
+                   "person who asked for the footage (ids from `redact tracks`), and extra regions or "
+                   "frames to obscure. Validated before any output.")
 @click.option("--audit", is_flag=True,
               help="After redacting, scan the redacted video and the source with independent detectors "
                    "(a face detector and the pose model at a larger size); exit 1 if anything is found. "
@@ -125,8 +129,8 @@ overwritten; an interrupted run leaves only a hidden .redact-partial-* folder.
 @click.option("--json", "as_json", is_flag=True, help="Print one JSON summary on stdout.")
 @click.option("--quiet", is_flag=True, help="No progress line.")
 @library_errors
-def process(source: Path, out: Path, key: Path, settings, privacy, disclosure, audit: bool, as_json: bool,
-            quiet: bool) -> None:
+def process(source: Path, out: Path, key: Path, settings, privacy, disclosure, plan: Path | None, audit: bool,
+            as_json: bool, quiet: bool) -> None:
     """Obscure every person in a video and write a signed skeleton-only package.
 
     Each person is tracked and obscured in every frame, including frames where the detector
@@ -138,7 +142,7 @@ def process(source: Path, out: Path, key: Path, settings, privacy, disclosure, a
     if not source.exists():
         raise InputError(f"{source}: no such file")
     signer = load_private_key(key, read_passphrase(confirm=False))
-    _run(source, out, signer, settings, disclosure, as_json, quiet, privacy=privacy, audit=audit)
+    _run(source, out, signer, settings, disclosure, as_json, quiet, privacy=privacy, audit=audit, plan=plan)
 
 
 def demo_clip() -> Path:
