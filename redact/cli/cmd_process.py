@@ -158,7 +158,7 @@ def demo_clip() -> Path:
 @main.command("demo", epilog=f"""\b
 Example:
   redact demo                # writes redact-demo-output/<time>/
-  redact demo --out /tmp/d
+  redact demo --out demo-output
 
 The demo signs with a throw-away key made for this run (passphrase "{DEMO_PASSPHRASE}");
 use `redact keygen` and `redact process --key` for real material.
