@@ -109,8 +109,10 @@ def end_to_end(clip: Path, settings: ProcessSettings) -> float:
         return rate(r.frames, time.perf_counter() - t)
 
 
+# Peak RSS is read from VmHWM in /proc/self/status, not getrusage: Linux keeps ru_maxrss across
+# execve, so a child started from this (large) benchmark process would report the parent's peak.
 MEMORY_CHILD = """
-import json, resource, sys
+import json, sys
 from pathlib import Path
 from redact.pipeline import ProcessSettings, process_video
 from redact.pose import PoseSettings
@@ -118,7 +120,8 @@ from redact.signing import Signer
 clip, out, stride = sys.argv[1], sys.argv[2], int(sys.argv[3])
 s = ProcessSettings(pose=PoseSettings(input_long_side=320), detect_every=stride)
 r = process_video(clip, out, Signer.from_seed(bytes(32)), s)
-print(json.dumps({"frames": r.frames, "peak_rss_mib": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024}))
+hwm = [l for l in open("/proc/self/status") if l.startswith("VmHWM:")][0].split()[1]
+print(json.dumps({"frames": r.frames, "peak_rss_mib": int(hwm) / 1024}))
 """
 
 

@@ -116,6 +116,18 @@ def tracker_config_for(settings: ProcessSettings, fps: float) -> TrackerConfig:
     return replace(settings.tracker, max_coast_frames=int(round(settings.coast_seconds * (fps or 25.0))))
 
 
+def track_step(estimator, tracker: Tracker, frame, detect_every: int) -> Tracks:
+    """Detection (on every detect_every-th frame) and tracking for one decoded frame.
+
+    Raises on a frame the decoder flagged as damaged, so the caller fails closed. The track
+    sheet calls this too, so that its ids are the ones a run with the same settings assigns.
+    """
+    if frame.corrupt:
+        raise RedactError("the decoder reported damaged data in this frame")
+    poses = estimator.estimate(frame.image) if frame.index % detect_every == 0 else None
+    return tracker.update(poses, frame.t, frame.index)
+
+
 def frame_ranges(indices: list[int]) -> list[list[int]]:
     """Sorted frame indices → inclusive [start, end] ranges."""
     out: list[list[int]] = []
@@ -246,7 +258,7 @@ def process_video(source: str | Path, out_dir: str | Path, signer, settings: Pro
     frames to obscure; validated before any output, its hash and every entry applied are logged.
     """
     from redact.models import get_model
-    from redact.video import VideoReader, VideoWriter, copy_audio, probe
+    from redact.video import probe
 
     started = time.perf_counter()
     source, out_dir = Path(source), Path(out_dir)
@@ -272,15 +284,16 @@ def process_video(source: str | Path, out_dir: str | Path, signer, settings: Pro
         raise OutputError(f"cannot write to {out_dir}: {e.strerror or e}") from None
     try:
         return _run(source, info, out_dir, staging, video_final, pkg_final, signer, settings, tracker_cfg,
-                    estimator, entry, obscurer, plate, disclosure, privacy, progress, started,
-                    VideoReader, VideoWriter, copy_audio, audit, plan_obj)
+                    estimator, entry, obscurer, plate, disclosure, privacy, progress, started, audit, plan_obj)
     finally:
         shutil.rmtree(staging, ignore_errors=True)
 
 
 def _run(source, info, out_dir, staging, video_final, pkg_final, signer, settings, tracker_cfg, estimator,
-         entry, obscurer, plate, disclosure, privacy, progress, started, VideoReader, VideoWriter, copy_audio,
-         audit=False, plan=None):
+         entry, obscurer, plate, disclosure, privacy, progress, started, audit, plan):
+    """The streaming pass and the packaging, inside the staging folder (see process_video)."""
+    from redact.video import VideoReader, VideoWriter, copy_audio
+
     pkg_dir = staging / PACKAGE_NAME
     pkg_dir.mkdir()
     video_tmp = staging / VIDEO_NAME
@@ -309,11 +322,7 @@ def _run(source, info, out_dir, staging, video_final, pkg_final, signer, setting
             tracks: Tracks | None
             extra: tuple[str, ...] = ()
             try:
-                if frame.corrupt:
-                    raise RedactError("the decoder reported damaged data in this frame")
-                detect = frame.index % settings.detect_every == 0
-                poses = estimator.estimate(frame.image) if detect else None
-                tracks = tracker.update(poses, frame.t, frame.index)
+                tracks = track_step(estimator, tracker, frame, settings.detect_every)
                 hidden = tracks
                 if plan is None:
                     out = render_frame(frame.image, tracks, settings.render, plate=plate, obscurer=obscurer)

@@ -78,6 +78,12 @@ class Region:
             _fill(out, self.polygons)
         return out.astype(bool)
 
+    def paint(self, image: np.ndarray, value: tuple[int, int, int]) -> None:
+        """Fill the region in place in an RGB uint8 frame with one colour: exactly the pixels
+        `mask` marks, without building a mask (the fast path of a solid fill)."""
+        if not self.empty:
+            _fill(image, self.polygons, value)
+
     def crop_mask(self) -> np.ndarray:
         """The region as a bool mask over its own rect only [y1-y0, x1-x0] (cheap for big frames)."""
         x0, y0, x1, y1 = self.rect
@@ -122,14 +128,15 @@ def _clip_convex(poly: np.ndarray, w: int, h: int) -> np.ndarray | None:
     return np.asarray(pts, np.float64)
 
 
-def _fill(mask: np.ndarray, polygons: tuple[np.ndarray, ...]) -> None:
-    """Rasterise polygons into a uint8 mask, conservatively (edge pixels included)."""
+def _fill(mask: np.ndarray, polygons: tuple[np.ndarray, ...], value=1) -> None:
+    """Rasterise polygons into an image (a uint8 mask, or an RGB frame with an RGB value),
+    conservatively (edge pixels included)."""
     shift = 4
     scale = 1 << shift
     pts = [np.round(p * scale).astype(np.int32).reshape(-1, 1, 2) for p in polygons]
     for p in pts:  # one call per polygon: a single fillPoly leaves overlaps as holes (even-odd)
-        cv2.fillPoly(mask, [p], 1, lineType=cv2.LINE_8, shift=shift)
-    cv2.polylines(mask, pts, True, 1, thickness=1, lineType=cv2.LINE_8, shift=shift)
+        cv2.fillPoly(mask, [p], value, lineType=cv2.LINE_8, shift=shift)
+    cv2.polylines(mask, pts, True, value, thickness=1, lineType=cv2.LINE_8, shift=shift)
 
 
 def person_region(box: np.ndarray, keypoints: np.ndarray, extra_margin: float, shape: tuple[int, ...],

@@ -98,7 +98,7 @@ class Fill:
 
     def apply_into(self, out, rect, sub_mask, size) -> None:
         x0, y0, x1, y1 = rect
-        out[y0:y1, x0:x1][sub_mask] = self.grey
+        np.copyto(out[y0:y1, x0:x1], np.uint8(self.grey), where=sub_mask[:, :, None])
 
 
 class Blur:
@@ -133,7 +133,7 @@ class Blur:
         small = cv2.GaussianBlur(small, (0, 0), sigmaX=small_sigma, sigmaY=small_sigma,
                                  borderType=cv2.BORDER_REFLECT)
         blurred = cv2.resize(small, (w, h), interpolation=cv2.INTER_LINEAR)
-        out[y0:y1, x0:x1][sub_mask] = blurred[sub_mask]
+        np.copyto(out[y0:y1, x0:x1], blurred, where=sub_mask[:, :, None])
 
 
 class Pixelate:
@@ -156,7 +156,7 @@ class Pixelate:
         sw, sh = max(1, math.ceil(w / block)), max(1, math.ceil(h / block))
         small = cv2.resize(crop, (sw, sh), interpolation=cv2.INTER_AREA)
         big = cv2.resize(small, (w, h), interpolation=cv2.INTER_NEAREST)
-        out[y0:y1, x0:x1][sub_mask] = big[sub_mask]
+        np.copyto(out[y0:y1, x0:x1], big, where=sub_mask[:, :, None])
 
 
 class PlateFill:
@@ -181,7 +181,7 @@ class PlateFill:
         valid = p.valid[y0:y1, x0:x1]
         self.fallback.apply_into(out, rect, sub_mask & ~valid, size)
         use_plate = sub_mask & valid
-        out[y0:y1, x0:x1][use_plate] = p.image[y0:y1, x0:x1][use_plate]
+        np.copyto(out[y0:y1, x0:x1], p.image[y0:y1, x0:x1], where=use_plate[:, :, None])
 
 
 class StickFigure:
@@ -287,7 +287,10 @@ def render_frame(image: np.ndarray, tracks: Tracks, style: RenderSettings,
     for region in track_regions(tracks, img.shape, style.regions):
         if region.empty:
             continue
-        ob.apply_into(out, region.rect, region.crop_mask(), region.size)
+        if type(ob) is Fill:  # a solid fill rasterises straight into the frame (same pixels as its mask)
+            region.paint(out, (ob.grey,) * 3)
+        else:
+            ob.apply_into(out, region.rect, region.crop_mask(), region.size)
     if style.draws_figures and len(tracks):
         fig = StickFigure(style.figure_threshold, style.line_width)
         out = fig.draw(out, tracks.keypoints)

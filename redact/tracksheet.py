@@ -24,8 +24,8 @@ from pathlib import Path
 
 import numpy as np
 
-from redact.errors import OutputError, RedactError
-from redact.pipeline import ProcessSettings, tracker_config_for
+from redact.errors import OutputError
+from redact.pipeline import ProcessSettings, track_step, tracker_config_for
 from redact.plan import PLAN_VERSION, ids_fingerprint
 
 TRACKS_NAME = "tracks.json"
@@ -122,17 +122,13 @@ def _track_pass(source: Path, settings: ProcessSettings, estimator, fps: float):
 
     tracker = Tracker(tracker_config_for(settings, fps))
     seen: dict[int, _Seen] = {}
-    every = int(getattr(settings, "detect_every", 1))
+    every = settings.detect_every
     with VideoReader(source, threads=0) as reader:
         n = 0
         for frame in reader.frames():
             n += 1
-            try:  # the pipeline skips the tracker on a failed frame (and obscures it whole): so do we
-                if frame.corrupt:
-                    raise RedactError("damaged frame")
-                detect = frame.index % every == 0  # the pipeline's detection stride (detect_every)
-                poses = estimator.estimate(frame.image) if detect else None
-                tracks = tracker.update(poses, frame.t, frame.index)
+            try:  # the pipeline's own step; on a failed frame it skips the tracker: so do we
+                tracks = track_step(estimator, tracker, frame, every)
             except Exception:  # noqa: BLE001 - mirror the pipeline's fail-closed skip
                 continue
             for k in np.nonzero(tracks.observed)[0]:

@@ -98,3 +98,20 @@ def test_any_box_is_covered_where_it_is_visible(x, y, w, h, extra):
     gx0, gy0, gx1, gy1 = max(gx0, 0), max(gy0, 0), min(gx1, W - 1), min(gy1, H - 1)
     if gx1 >= gx0 and gy1 >= gy0:
         assert mask[gy0:gy1 + 1, gx0:gx1 + 1].all()
+
+
+def test_paint_covers_exactly_the_mask():
+    """The solid-fill fast path paints the same pixels the region's mask marks."""
+    import numpy as np
+
+    from redact.regions import person_region
+
+    kp = np.zeros((17, 3))
+    kp[0] = (60, 30, 0.9)
+    kp[5] = (40, 70, 0.9)
+    kp[6] = (85, 72, 0.9)
+    region = person_region(np.array([30.0, 20.0, 95.0, 150.0]), kp, 0.2, (120, 110, 3))
+    img = np.zeros((120, 110, 3), np.uint8)
+    region.paint(img, (200, 200, 200))
+    np.testing.assert_array_equal(img[:, :, 0] == 200, region.mask(img.shape))
+    assert (img[region.mask(img.shape)] == 200).all()
