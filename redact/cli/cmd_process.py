@@ -187,10 +187,18 @@ def demo(out: Path | None, clip: Path | None, settings, as_json: bool, quiet: bo
     disclosure = {"recipient": "demo recipient", "organisation": "demo", "purpose": "demonstration of redact",
                   "date": datetime.now(timezone.utc).date().isoformat()}
     result = _run(source, out, signer, settings, disclosure, as_json, quiet)
+    from redact.report import build_report
+    from redact.signing import load_public_key
+
+    report = out / "report.html"
+    tmp = out / ".report.html.partial"
+    tmp.write_bytes(build_report(result.package, [load_public_key(public)], video=result.video))
+    os.replace(tmp, report)
     if not as_json:
         click.echo("")
         click.echo("Open first:")
-        click.echo(f"  1. {result.video}  - the redacted copy; step through the review ranges above")
-        click.echo(f"  2. redact inspect {result.package}  - what the package holds")
-        click.echo(f"  3. redact verify {result.package} --key {public} --video {result.video}")
+        click.echo(f"  1. {report}  - the disclosure report: signature status, flagged ranges, cautions")
+        click.echo(f"  2. {result.video}  - the redacted copy; step through the review ranges above")
+        click.echo(f"  3. redact inspect {result.package}  - what the package holds")
+        click.echo(f"  4. redact verify {result.package} --key {public} --video {result.video}")
         click.echo(f"\n{CAUTION}")
