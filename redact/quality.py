@@ -46,6 +46,11 @@ class ReviewRules:
     count_drop: flag when the observed count is this many below its maximum over the previous
     drop_window frames (0 = never). fault: flag frames that failed and were fully obscured.
     merge_gap: flagged frames at most this many frames apart join one range.
+    min_hits: the coasting and count-drop rules count only tracks observed in at least this many
+    frames (tracks whose count is unknown, 0, always count), and coasting only while the predicted
+    box is still in the picture: a detection seen once or twice and then gone is usually a
+    duplicate box of someone already tracked, and would otherwise flag the next 1.5 s (common
+    practice).
     """
 
     dark: float = 40.0
@@ -57,13 +62,14 @@ class ReviewRules:
     drop_window: int = 5
     fault: bool = True
     merge_gap: int = 5
+    min_hits: int = 3
 
     def __post_init__(self) -> None:
         for name in ("dark", "low_contrast", "blurred", "low_confidence"):
             v = getattr(self, name)
             if not (isinstance(v, (int, float)) and math.isfinite(v) and v >= 0):
                 raise RedactError(f"review rule {name} must be a finite number >= 0, got {v!r}")
-        for name in ("coasting", "count_drop", "drop_window", "merge_gap"):
+        for name in ("coasting", "count_drop", "drop_window", "merge_gap", "min_hits"):
             v = getattr(self, name)
             if not (isinstance(v, int) and v >= 0):
                 raise RedactError(f"review rule {name} must be a whole number >= 0, got {v!r}")
@@ -155,6 +161,7 @@ class QualityMonitor:
             g = analysis_grey(image)
             lm, ls, sh = float(g.mean(dtype=np.float64)), float(g.std(dtype=np.float64)), sharpness(g)
         people = observed = predicted = 0
+        settled_observed = settled_coasting = 0
         mean_conf = None
         if tracks is not None:
             people = len(tracks)
@@ -162,10 +169,18 @@ class QualityMonitor:
             predicted = people - observed
             if observed:
                 mean_conf = float(tracks.keypoints[tracks.observed, :, 2].astype(np.float64).mean())
+            settled = (tracks.hits >= r.min_hits) | (tracks.hits == 0)
+            visible = np.ones(people, bool)
+            if usable:
+                h, w = np.asarray(image).shape[:2]
+                b = tracks.boxes
+                visible = (b[:, 2] > 0) & (b[:, 0] < w) & (b[:, 3] > 0) & (b[:, 1] < h)
+            settled_observed = int((tracks.observed & settled).sum())
+            settled_coasting = int((~tracks.observed & settled & visible).sum())
         # A frame without tracks (failed) says nothing about the count: no drop, not remembered.
-        drop = max(0, max(self._recent) - observed) if (self._recent and tracks is not None) else 0
+        drop = max(0, max(self._recent) - settled_observed) if (self._recent and tracks is not None) else 0
         if tracks is not None:
-            self._recent.append(observed)
+            self._recent.append(settled_observed)
 
         reasons = []
         if lm is not None and lm < r.dark:
@@ -176,7 +191,7 @@ class QualityMonitor:
             reasons.append("blurred")
         if mean_conf is not None and mean_conf < r.low_confidence:
             reasons.append("low_confidence")
-        if r.coasting and predicted >= r.coasting:
+        if r.coasting and settled_coasting >= r.coasting:
             reasons.append("coasting")
         if r.count_drop and drop >= r.count_drop:
             reasons.append("count_drop")

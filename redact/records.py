@@ -62,6 +62,8 @@ class Tracks:
     observed [M] bool: True when matched to a detection in this frame, False when coasting
     on prediction; misses [M] int32 consecutive frames without detection;
     margin [M] float32: extra margin (fraction of box size) to obscure, grows while coasting.
+    hits [M] int32: frames in which the track has been observed so far (0 when unknown, e.g. rows
+    read back from a package).
     """
 
     ids: np.ndarray
@@ -71,6 +73,7 @@ class Tracks:
     observed: np.ndarray
     misses: np.ndarray
     margin: np.ndarray = field(default=None)  # type: ignore[assignment]
+    hits: np.ndarray = field(default=None)  # type: ignore[assignment]
 
     def __post_init__(self) -> None:
         ids = _check("ids", self.ids, (None,), np.int64)
@@ -83,6 +86,8 @@ class Tracks:
         object.__setattr__(self, "misses", _check("misses", self.misses, (m,), np.int32))
         margin = np.zeros(m, np.float32) if self.margin is None else self.margin
         object.__setattr__(self, "margin", _check("margin", margin, (m,), np.float32))
+        hits = np.zeros(m, np.int32) if self.hits is None else self.hits
+        object.__setattr__(self, "hits", _check("hits", hits, (m,), np.int32))
 
     def __len__(self) -> int:
         return int(self.ids.shape[0])
@@ -90,7 +95,7 @@ class Tracks:
     def select(self, index) -> "Tracks":
         """A new record with the rows picked by a boolean mask or integer index array."""
         return Tracks(self.ids[index], self.boxes[index], self.scores[index], self.keypoints[index],
-                      self.observed[index], self.misses[index], self.margin[index])
+                      self.observed[index], self.misses[index], self.margin[index], self.hits[index])
 
     @staticmethod
     def empty() -> "Tracks":

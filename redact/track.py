@@ -301,4 +301,5 @@ class Tracker:
             observed=obs,
             misses=np.array([tr.unseen for tr in live], np.int32),
             margin=np.array([self.config.margin_after(tr.unseen) for tr in live]),
+            hits=np.array([tr.n_obs for tr in live], np.int32),
         )

@@ -166,3 +166,23 @@ def test_rules_are_checked():
         ReviewRules(dark=-1)
     with pytest.raises(RedactError):
         ReviewRules(merge_gap=1.5)  # type: ignore[arg-type]
+
+
+def test_short_lived_and_off_screen_coasting_tracks_do_not_flag():
+    """min_hits: a track seen once and then coasting is not flagged; a settled one is, while on screen."""
+    import numpy as np
+
+    from redact.quality import QualityMonitor, ReviewRules
+    from redact.records import Tracks
+
+    def tracks(box, hits, observed):
+        return Tracks(np.array([1]), np.array([box], np.float32), np.array([0.9]), np.zeros((1, 17, 3)),
+                      np.array([observed]), np.array([0 if observed else 1], np.int32), None,
+                      np.array([hits], np.int32))
+
+    img = np.full((100, 200, 3), 120, np.uint8)
+    img[::2] = 160  # some texture, so the image rules stay quiet
+    m = QualityMonitor(ReviewRules(min_hits=3))
+    assert "coasting" not in m.observe(0, 0.0, img, tracks([10, 10, 50, 90], 1, False)).reasons
+    assert "coasting" in m.observe(1, 0.04, img, tracks([10, 10, 50, 90], 5, False)).reasons
+    assert "coasting" not in m.observe(2, 0.08, img, tracks([-90, -80, -10, -5], 5, False)).reasons
