@@ -57,7 +57,7 @@ from redact.errors import InputError, OutputError, RedactError, SigningKeyError
 from redact.hashing import sha256_file
 from redact.log import utc_now
 from redact.pipeline import PACKAGE_NAME, ProcessSettings, process_video
-from redact.signing import Signer
+from redact.signing import Signer, load_private_key_bytes
 
 # Container extensions looked for (lower case; matching ignores case). Common practice: the
 # containers FFmpeg demuxes that surveillance exports and cameras commonly write.
@@ -132,20 +132,13 @@ class BatchKey:
 
     def signer(self) -> Signer:
         """Decrypt the key (passphrase from this object, else from $REDACT_KEY_PASSPHRASE)."""
-        from cryptography.exceptions import UnsupportedAlgorithm
-        from cryptography.hazmat.primitives import serialization
-
         passphrase = self.passphrase
         if passphrase is None:
             env = os.environ.get(PASSPHRASE_ENV)
             if not env:
                 raise SigningKeyError(f"this worker has no key passphrase: start it with ${PASSPHRASE_ENV} set")
             passphrase = env.encode("utf-8")
-        try:
-            key = serialization.load_pem_private_key(self.pem, password=passphrase)
-        except (TypeError, ValueError, UnsupportedAlgorithm):  # cryptography: unencrypted, wrong passphrase, bad PEM
-            raise SigningKeyError("cannot open the signing key in this worker (wrong passphrase?)") from None
-        signer = Signer(key)
+        signer = load_private_key_bytes(self.pem, passphrase, "this worker's signing key")
         if signer.key_id != self.key_id:
             raise SigningKeyError(f"the worker's key is {signer.key_id}, expected {self.key_id}")
         return signer

@@ -188,18 +188,22 @@ def generate_key(private_path: Path, public_path: Path, passphrase: bytes) -> st
 
 def load_private_key(path: Path, passphrase: bytes) -> Signer:
     """Load an encrypted PKCS#8 PEM Ed25519 private key; SigningKeyError on a wrong passphrase."""
+    return load_private_key_bytes(_read_key_file(path), passphrase, str(path))
+
+
+def load_private_key_bytes(data: bytes, passphrase: bytes, where: str = "the signing key") -> Signer:
+    """The same from PEM bytes already in memory (e.g. handed to a batch worker)."""
     from cryptography.exceptions import UnsupportedAlgorithm
     from cryptography.hazmat.primitives import serialization
 
-    data = _read_key_file(path)
     if not passphrase:
         raise SigningKeyError("a passphrase is required to open the private key")
     try:
         key = serialization.load_pem_private_key(data, password=bytes(passphrase))
     except TypeError:
-        raise SigningKeyError(f"{path}: the private key is not encrypted; create keys with `redact keygen`") from None
+        raise SigningKeyError(f"{where}: the private key is not encrypted; create keys with `redact keygen`") from None
     except (ValueError, UnsupportedAlgorithm):  # cryptography: bad passphrase, bad PEM, unknown key type
-        raise SigningKeyError(f"{path}: cannot open the private key (wrong passphrase or not a PEM key)") from None
+        raise SigningKeyError(f"{where}: cannot open the private key (wrong passphrase or not a PEM key)") from None
     return Signer(key)
 
 
