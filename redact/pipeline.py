@@ -220,6 +220,53 @@ class _Lookback:
         return out
 
 
+class _FrameFinisher:
+    """Everything after tracking for one frame, in frame order: obscure (failing closed), look
+    back, hand to the encoder, write the skeleton row, the quality line and the frame digest."""
+
+    def __init__(self, settings, plate, obscurer, lookback, monitor, stats, encode, skel, qual, frames_out,
+                 progress, expected: int):
+        self.settings, self.plate, self.obscurer = settings, plate, obscurer
+        self.lookback, self.monitor, self.stats, self.encode = lookback, monitor, stats, encode
+        self.skel, self.qual, self.frames_out = skel, qual, frames_out
+        self.progress, self.expected = progress, expected
+
+    def _render(self, frame, tracks: Tracks, decision) -> tuple[np.ndarray, Tracks, tuple[str, ...]]:
+        style = self.settings.render
+        if decision is None:
+            return render_frame(frame.image, tracks, style, plate=self.plate, obscurer=self.obscurer), tracks, ()
+        extra = ("kept_overlap",) if decision.overlap_ids else ()
+        if decision.whole_frame:
+            return obscure_all(frame.image), decision.obscure, extra
+        out = render_frame(frame.image, decision.obscure, style, plate=self.plate, obscurer=self.obscurer)
+        if decision.mask is not None:
+            out = self.obscurer.apply(out, decision.mask)
+        return out, decision.obscure, extra
+
+    def finish(self, frame, tracks: Tracks | None, decision, error: str | None) -> None:
+        extra: tuple[str, ...] = ()
+        hidden = None
+        if tracks is not None:
+            try:
+                out, hidden, extra = self._render(frame, tracks, decision)
+                self.stats.people(frame.index, tracks)
+            except Exception as e:  # fail closed: whatever went wrong, this frame shows nobody
+                tracks, hidden, error = None, None, type(e).__name__
+        if tracks is None:
+            out = obscure_all(frame.image)
+            self.stats.fault(frame.index, error or "unknown")
+        status = rows.STATUS_OK if tracks is not None else rows.STATUS_FAULT
+        pts = frame.pts if frame.pts is not None else frame.index
+        for _, ready_pts, ready in self.lookback.push(frame.index, pts, out, hidden, self.stats):
+            self.encode(ready, ready_pts)
+        self.skel.write(rows.encode_row(frame.index, frame.pts, frame.t, tracks or Tracks.empty(), status))
+        self.qual.write(encode_quality_line(self.monitor.observe(frame.index, frame.t, frame.image, tracks,
+                                                                 fault=tracks is None, extra=extra)))
+        self.frames_out.write(frame.digest.hex().encode() + b"\n")
+        if self.progress is not None:
+            self.progress(frame.index + 1, self.expected)
+
+
 def _build_plate(source: Path, estimator: PoseEstimator, settings: ProcessSettings):
     """A background plate from a first pass: sampled frames, people masked out (see redact.plate)."""
     from redact.plate import PlateBuilder
@@ -318,40 +365,21 @@ def _run(source, info, out_dir, staging, video_final, pkg_final, signer, setting
             open(pkg_dir / package.SKELETONS, "wb") as skel, \
             open(pkg_dir / package.QUALITY, "wb") as qual, \
             open(pkg_dir / package.FRAMES, "wb") as frames_out:
-        for frame in read_ahead(reader.frames(), depth=4):
-            tracks: Tracks | None
-            extra: tuple[str, ...] = ()
-            try:
-                tracks = track_step(estimator, tracker, frame, settings.detect_every)
-                hidden = tracks
-                if plan is None:
-                    out = render_frame(frame.image, tracks, settings.render, plate=plate, obscurer=obscurer)
-                else:
-                    decision = plan.decide(frame.index, frame.t, tracks, frame.image.shape)
-                    hidden = decision.obscure
-                    if decision.whole_frame:
-                        out = obscure_all(frame.image)
-                    else:
-                        out = render_frame(frame.image, hidden, settings.render, plate=plate, obscurer=obscurer)
-                        if decision.mask is not None:
-                            out = obscurer.apply(out, decision.mask)
-                    extra = ("kept_overlap",) if decision.overlap_ids else ()
-                status = rows.STATUS_OK
-                stats.people(frame.index, tracks)
-            except Exception as e:  # fail closed: whatever went wrong, this frame shows nobody
-                out = obscure_all(frame.image)
-                tracks, hidden, status = None, None, rows.STATUS_FAULT
-                stats.fault(frame.index, type(e).__name__)
-            pts = frame.pts if frame.pts is not None else frame.index
-            for _, ready_pts, ready in lookback.push(frame.index, pts, out, hidden, stats):
-                encoder.submit(ready, ready_pts)
-            skel.write(rows.encode_row(frame.index, frame.pts, frame.t, tracks or Tracks.empty(), status))
-            qual.write(encode_quality_line(monitor.observe(frame.index, frame.t, frame.image, tracks,
-                                                           fault=tracks is None, extra=extra)))
-            frames_out.write(frame.digest.hex().encode() + b"\n")
-            n_frames += 1
-            if progress is not None:
-                progress(frame.index + 1, info.frames)
+        finisher = _FrameFinisher(settings, plate, obscurer, lookback, monitor, stats, encoder.submit,
+                                  skel, qual, frames_out, progress, info.frames)
+        # Detection and tracking stay here, in frame order; rendering, the look-back, rows and
+        # quality run in one thread behind, so they overlap the next frame's inference.
+        with WriteBehind(finisher.finish, depth=2) as finishing:
+            for frame in read_ahead(reader.frames(), depth=4):
+                tracks = decision = error = None
+                try:
+                    tracks = track_step(estimator, tracker, frame, settings.detect_every)
+                    if plan is not None:
+                        decision = plan.decide(frame.index, frame.t, tracks, frame.image.shape)
+                except Exception as e:  # fail closed: the finisher obscures the whole frame
+                    tracks, error = None, type(e).__name__
+                finishing.submit(frame, tracks, decision, error)
+                n_frames += 1
         for _, ready_pts, ready in lookback.flush():
             encoder.submit(ready, ready_pts)
         encoder.close()
