@@ -274,3 +274,14 @@ def test_cli_process_audit_is_recorded_in_the_log(crossing_clip, tmp_path, key):
     assert audit["passed"] and audit["faces"] == 0 and audit["source_faces"] > 0 and audit["survived"] == 0
     log = [json.loads(line) for line in (out / "package" / "log.jsonl").read_text().splitlines()]
     assert [e["survived"] for e in log if e["kind"] == "audit"] == [0]
+
+
+def test_missing_key_or_passphrase_are_one_line_errors(crossing_clip, tmp_path, key, monkeypatch):
+    out = tmp_path / "nokey"
+    r = CliRunner().invoke(main, ["process", str(crossing_clip.path), "--out", str(out), "--key",
+                                  str(tmp_path / "absent.pem")])
+    assert r.exit_code == 2 and "no such key file" in r.stderr
+    monkeypatch.delenv("REDACT_KEY_PASSPHRASE")
+    r = CliRunner().invoke(main, ["process", str(crossing_clip.path), "--out", str(out), "--key", str(key)], input="")
+    assert r.exit_code == 2 and "REDACT_KEY_PASSPHRASE" in r.stderr.splitlines()[-1]
+    assert not out.exists()

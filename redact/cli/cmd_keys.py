@@ -24,8 +24,11 @@ def read_passphrase(confirm: bool) -> bytes:
     if env is not None:
         value = env
     else:
-        value = click.prompt("Key passphrase", hide_input=True, confirmation_prompt=confirm, err=True,
-                             default="", show_default=False)
+        try:
+            value = click.prompt("Key passphrase", hide_input=True, confirmation_prompt=confirm, err=True,
+                                 default="", show_default=False)
+        except click.Abort:  # no terminal to ask on (e.g. stdin closed in a script)
+            raise SigningKeyError(f"no passphrase given: set {PASSPHRASE_ENV} or run in a terminal") from None
     if not value:
         raise SigningKeyError(f"an empty passphrase is not allowed (type one, or set {PASSPHRASE_ENV})")
     return value.encode("utf-8")

@@ -141,6 +141,8 @@ def process(source: Path, out: Path, key: Path, settings, privacy, disclosure, p
 
     if not source.exists():
         raise InputError(f"{source}: no such file")
+    if not key.is_file():
+        raise InputError(f"--key {key}: no such key file (create one with `redact keygen`)")
     signer = load_private_key(key, read_passphrase(confirm=False))
     _run(source, out, signer, settings, disclosure, as_json, quiet, privacy=privacy, audit=audit, plan=plan)
 
