@@ -285,3 +285,33 @@ def test_missing_key_or_passphrase_are_one_line_errors(crossing_clip, tmp_path, 
     r = CliRunner().invoke(main, ["process", str(crossing_clip.path), "--out", str(out), "--key", str(key)], input="")
     assert r.exit_code == 2 and "REDACT_KEY_PASSPHRASE" in r.stderr.splitlines()[-1]
     assert not out.exists()
+
+
+def _with_tags(src: Path, dst: Path) -> Path:
+    """Remux src with PyAV, adding container tags a camera might write (invented values)."""
+    with av.open(str(src)) as i, av.open(str(dst), "w", format="mp4") as o:
+        o.metadata["title"] = "Camera 7, north entrance"
+        o.metadata["comment"] = "operator J. Example"
+        streams = {s.index: o.add_stream_from_template(s) for s in i.streams if s.type in ("video", "audio")}
+        for pkt in i.demux(*[i.streams[k] for k in streams]):
+            if pkt.dts is None:
+                continue
+            pkt.stream = streams[pkt.stream.index]
+            o.mux(pkt)
+    return dst
+
+
+@pytest.mark.parametrize("keep", [False, True])
+def test_audio_is_dropped_unless_asked_and_metadata_is_not_copied(clip_with_audio, tmp_path, keep):
+    """PyAV/FFmpeg reopens the output: an audio stream only with keep_audio; no source tags."""
+    src = _with_tags(clip_with_audio.path, tmp_path / "tagged.mp4")
+    with av.open(str(src)) as c:
+        assert c.metadata.get("title") == "Camera 7, north entrance"  # the tags are really there
+    result = process_video(src, tmp_path / "o", Signer.from_seed(SEED), ProcessSettings(keep_audio=keep))
+    with av.open(str(result.video)) as c:
+        assert len(c.streams.audio) == (1 if keep else 0)
+        assert not {"title", "comment", "creation_time", "encoder", "location"} & set(c.metadata)
+        assert b"north entrance" not in result.video.read_bytes()
+    log = [json.loads(line) for line in (result.package / "log.jsonl").read_text().splitlines()]
+    enc = [e for e in log if e["kind"] == "encode"][0]
+    assert enc["audio"] == ("kept" if keep else "dropped") and enc["container_metadata"] == "not copied"
