@@ -64,7 +64,7 @@ def measure_parts(clip: Path, settings: ProcessSettings, wheel: Path | None = No
         decode = rate(len(frames), time.perf_counter() - t)
         info = r.info
     images = [f.image for f in frames]
-    est = PoseEstimator.default(settings.pose, settings.threads)
+    est = PoseEstimator.default(settings.pose, settings.model_threads)
     est.estimate(images[0])
     t = time.perf_counter()
     for im in images:
@@ -140,6 +140,9 @@ def main() -> None:
     ap.add_argument("--seconds", type=float, default=8.0, help="length of the 720p clip")
     ap.add_argument("--stride", type=int, default=3, help="detection stride to compare with stride 1")
     ap.add_argument("--input-size", type=int, default=640)
+    ap.add_argument("--threads", type=int, nargs="*", default=[0],
+                    help="model thread counts to compare; 0 = the pipeline's own choice "
+                         "(b is measured with the same count as a)")
     ap.add_argument("--memory-minutes", type=float, nargs="*", default=[1, 5])
     ap.add_argument("--skip-memory", action="store_true")
     ap.add_argument("--reference-wheel", type=Path, default=None,
@@ -151,13 +154,14 @@ def main() -> None:
         clip = work / "bench720.mp4"
         syn.write_clip(scene(1280, 720, args.seconds), clip)
         print(f"clip: 1280x720, 25 fps, {args.seconds:g} s, 4 people; model input long side {args.input_size}")
-        for stride in (1, args.stride):
-            settings = ProcessSettings(pose=PoseSettings(input_long_side=args.input_size), detect_every=stride)
+        for threads, stride in [(t, s) for t in args.threads for s in (1, args.stride)]:
+            settings = ProcessSettings(pose=PoseSettings(input_long_side=args.input_size), detect_every=stride,
+                                       threads=threads or None)
             parts = measure_parts(clip, settings, args.reference_wheel)
             a = end_to_end(clip, settings)
             b = parts["model"] * stride  # the model runs on one frame in `stride`
             ref = parts["reference"]
-            print(f"\nstride {stride}:")
+            print(f"\nstride {stride}, model threads {settings.model_threads}:")
             print(f"  (a) end to end        {a:7.1f} frames/s")
             print(f"  (b) model alone       {b:7.1f} frames/s  (pose on every {stride}. frame)")
             print(f"  (c) decode only       {parts['decode']:7.1f} frames/s;  encode only {parts['encode']:7.1f} frames/s")

@@ -214,10 +214,8 @@ def process_job(job: _Job, settings: ProcessSettings, signer: Signer, estimator=
 
     Never raises for a bad input: the failure is returned as {"status": "failed", "error": ...}.
     """
-    from redact.models import default_threads
-
     started = time.perf_counter()
-    threads = settings.threads or default_threads()
+    threads = settings.model_threads
     root, final = Path(job.out_root), Path(job.out_root) / job.name
     staging = None
     try:
@@ -248,7 +246,7 @@ def _init_worker(key: BatchKey, settings: ProcessSettings) -> None:
     from redact.pose import PoseEstimator
 
     _WORKER["signer"] = key.signer()
-    _WORKER["estimator"] = PoseEstimator.default(settings.pose, settings.threads)
+    _WORKER["estimator"] = PoseEstimator.default(settings.pose, settings.model_threads)
     _WORKER["settings"] = settings
 
 
@@ -472,7 +470,7 @@ def _run_here(jobs: list[_Job], settings: ProcessSettings, key, done) -> None:
     from redact.pose import PoseEstimator
 
     signer = key.signer() if isinstance(key, BatchKey) else key
-    estimator = PoseEstimator.default(settings.pose, settings.threads)  # the model is loaded once
+    estimator = PoseEstimator.default(settings.pose, settings.model_threads)  # the model is loaded once
     for job in jobs:
         done(job, process_job(job, settings, signer, estimator))
 

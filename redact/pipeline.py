@@ -72,6 +72,18 @@ class ProcessSettings:
         if not 0 <= self.crf <= 51:
             raise InputError(f"crf must be between 0 and 51, got {self.crf}")
 
+    @property
+    def model_threads(self) -> int:
+        """onnxruntime threads: `threads` when given; else every core when the model runs on every
+        frame (it dominates), and one core less with a detection stride, where decoding, drawing
+        and encoding dominate and need a core of their own (see benchmarks/README.md)."""
+        from redact.models import default_threads
+
+        if self.threads:
+            return self.threads
+        cores = default_threads()
+        return max(1, cores - 1) if self.detect_every > 1 else cores
+
     def record(self) -> dict:
         """The settings as plain JSON values (for the log and the predicate).
 
@@ -79,10 +91,8 @@ class ProcessSettings:
         order with a different thread count, which can move a keypoint by one in the last decimal,
         so a byte-identical rerun needs the same count.
         """
-        from redact.models import default_threads
-
         d = asdict(self)
-        d["threads"] = self.threads or default_threads()
+        d["threads"] = self.model_threads
         return d
 
 
@@ -319,7 +329,7 @@ def process_video(source: str | Path, out_dir: str | Path, signer, settings: Pro
         plan_obj = load_plan(plan, info)
         plan_obj.check_settings(settings, entry.sha256)
     if estimator is None:
-        estimator = PoseEstimator.default(settings.pose, settings.threads)  # hash check before any output
+        estimator = PoseEstimator.default(settings.pose, settings.model_threads)  # hash check before output
     tracker_cfg = tracker_config_for(settings, float(info.fps))
     plate = _build_plate(source, estimator, settings) if settings.render.style == "plate" else None
     obscurer = obscurer_for(settings.render, plate)
@@ -347,7 +357,7 @@ def _run(source, info, out_dir, staging, video_final, pkg_final, signer, setting
     log = TransformLog(pkg_dir / package.LOG)
     log.append("probe", **{k: v for k, v in info.as_dict().items() if k != "path"}, name=source.name)
     log.append("model", id=entry.id, sha256=entry.sha256, licence=entry.licence, runtime="onnxruntime-cpu",
-               threads=settings.record()["threads"])
+               threads=settings.model_threads)
     log.append("detection", **asdict(settings.pose), detect_every=settings.detect_every)
     log.append("tracking", **asdict(tracker_cfg), coast_seconds=settings.coast_seconds)
     if plate is not None:

@@ -1,7 +1,7 @@
 """Track sheet: for the operator answering a request for footage, one picture per tracked person.
 
 `make_track_sheet` runs decode → pose → tracker with exactly the settings of `redact process`
-(PoseEstimator.default(settings.pose, settings.threads), Tracker(tracker_config_for(settings, fps)),
+(PoseEstimator.default(settings.pose, settings.model_threads), Tracker(tracker_config_for(settings, fps)),
 frames skipped the same way the pipeline skips failed frames), so its track ids are the ids a run
 with the same settings assigns. The operator finds the requester's id(s) on the sheet and writes
 them into a redaction plan (redact.plan); the sheet's plan-template.json carries the source hash
@@ -170,7 +170,7 @@ def make_track_sheet(source: str | Path, out_dir: str | Path, settings: ProcessS
         raise OutputError(f"{out_dir} already exists; choose a new --out (a track sheet is never overwritten)")
     entry = get_model(task="pose")
     if estimator is None:
-        estimator = PoseEstimator.default(settings.pose, settings.threads)
+        estimator = PoseEstimator.default(settings.pose, settings.model_threads)
     parent = out_dir.parent
     try:
         parent.mkdir(parents=True, exist_ok=True)

@@ -35,7 +35,7 @@ def pipeline_options(fn):
     @click.option("--detect-every", type=click.IntRange(1, 10), default=1, show_default=True,
                   help="Run the detector on every k-th frame and track in between (faster; margins grow "
                        "on frames without detection).")
-    @click.option("--threads", type=click.IntRange(1, 256), default=None, help="CPU threads for the model (default: all cores).")
+    @click.option("--threads", type=click.IntRange(1, 256), default=None, help="CPU threads for the model (default: all cores; one less with --detect-every 2 or more).")
     @click.option("--crf", type=click.IntRange(0, 51), default=20, show_default=True, help="H.264 quality of the redacted video (lower is better).")
     @click.option("--keep-audio", is_flag=True, help="Carry the source's audio into the redacted video (dropped by default: voices identify people).")
     @click.option("--archive", is_flag=True, help="Write the package as one .tar instead of a folder.")
