@@ -468,6 +468,11 @@ def main(argv: list[str] | None = None) -> None:
             worst = max(worst, *(float(np.abs(r - g).max()) for r, g in zip(ref, got)))
         if worst > 1e-3:
             raise SystemExit(f"{variant}: ONNX differs from TFLite by {worst}")
+        import onnx  # tf2onnx's dependency
+
+        m = onnx.load(str(tmp_out))  # tf2onnx writes the build folder's path into the graph doc string
+        m.graph.doc_string = f"converted from {path} ({PACKAGE} {VERSION})" + (", weights densified" if densified else "")
+        onnx.save(m, str(tmp_out))
         data = tmp_out.read_bytes()
         onnx_path.write_bytes(data)
         inp = sess.get_inputs()[0]
