@@ -34,7 +34,7 @@ def models_command(as_json: bool) -> None:
         echo_json({"models": rows})
     else:
         for r in rows:
-            click.echo(f"{r['id']:<22} {r['task']:<16} {r['licence']:<11} {r['source']:<26} "
+            click.echo(f"{r['id']:<26} {r['task']:<15} {r['licence']:<11} {r['source']:<26} "
                        f"{r['sha256'][:16]}…  {r['status']}")
     if any(r["status"] != "ok" for r in rows):
         raise SystemExit(1)
