@@ -13,6 +13,7 @@ from fractions import Fraction
 from pathlib import Path
 
 import pytest
+from click.testing import CliRunner
 
 from redact import synthetic as syn
 
@@ -85,3 +86,35 @@ def bad_inputs(tmp_path, crossing_clip) -> dict[str, Path]:
         "zero_frames": syn.write_zero_frame_video(d / "zero.avi"),
         "truncated": syn.write_truncated(crossing_clip.path, d / "truncated.mp4", 0.5),
     }
+
+
+class ScriptedEstimator:
+    """The real default estimator, except on chosen calls (frame indices when every frame is
+    detected): `misses` find nobody (the tracker must coast), `faults` raise (fail closed)."""
+
+    def __init__(self, misses=(), faults=(), settings=None):
+        from redact.pose import PoseEstimator, PoseSettings
+
+        self.inner = PoseEstimator.default(settings or PoseSettings())
+        self.misses, self.faults, self.calls = set(misses), set(faults), 0
+
+    def estimate(self, image):
+        from redact.records import Poses
+
+        i = self.calls
+        self.calls += 1
+        if i in self.faults:
+            raise RuntimeError(f"injected fault at call {i}")
+        poses = self.inner.estimate(image)
+        return Poses.empty() if i in self.misses else poses
+
+
+@pytest.fixture
+def key(tmp_path, monkeypatch):
+    """A fresh signing key made through `redact keygen`; its passphrase is in the environment."""
+    from redact.cli import main
+
+    monkeypatch.setenv("REDACT_KEY_PASSPHRASE", "test passphrase")
+    r = CliRunner().invoke(main, ["keygen", "--out-dir", str(tmp_path / "keys"), "--name", "t"])
+    assert r.exit_code == 0, r.output
+    return tmp_path / "keys" / "t.private.pem"

@@ -557,16 +557,6 @@ def test_decisions_and_counters_are_deterministic():
 
 # ---------------------------------------------------------------- bad plans through the CLI
 
-@pytest.fixture
-def key(tmp_path, monkeypatch):
-    from redact.cli import main
-
-    monkeypatch.setenv("REDACT_KEY_PASSPHRASE", "test passphrase")
-    r = CliRunner().invoke(main, ["keygen", "--out-dir", str(tmp_path / "keys"), "--name", "t"])
-    assert r.exit_code == 0, r.output
-    return tmp_path / "keys" / "t.private.pem"
-
-
 def _valid_sheet(clip_path: Path) -> dict:
     from redact.models import get_model
 

@@ -18,10 +18,10 @@ from skimage.metrics import structural_similarity
 
 from redact.cli import main
 from redact.pipeline import ProcessSettings, process_video
-from redact.pose import PoseEstimator, PoseSettings
-from redact.records import Poses
 from redact.rows import read_rows
 from redact.signing import Signer
+
+from conftest import ScriptedEstimator
 
 SEED = bytes(range(32))
 MISS_FRAMES = set(range(12, 20))   # the detector "misses" everyone here: tracks must coast
@@ -40,22 +40,6 @@ def decode_all(path: Path) -> tuple[list[np.ndarray], list[int], object]:
             frames.append(f.to_ndarray(format="rgb24"))
             pts.append(f.pts)
         return frames, pts, s.time_base
-
-
-class ScriptedEstimator:
-    """The real default estimator, except on chosen frames: misses (no people) or faults (raises)."""
-
-    def __init__(self, misses=(), faults=(), settings: PoseSettings = PoseSettings()):
-        self.inner = PoseEstimator.default(settings)
-        self.misses, self.faults, self.calls = set(misses), set(faults), 0
-
-    def estimate(self, image):
-        i = self.calls
-        self.calls += 1
-        if i in self.faults:
-            raise RuntimeError(f"injected fault at frame {i}")
-        poses = self.inner.estimate(image)
-        return Poses.empty() if i in self.misses else poses
 
 
 @pytest.fixture(scope="module")
@@ -168,14 +152,6 @@ def test_rerun_gives_identical_skeleton_rows(processed, tmp_path):
 
 
 # ---------------------------------------------------------------- the CLI and bad input
-
-@pytest.fixture
-def key(tmp_path, monkeypatch):
-    monkeypatch.setenv("REDACT_KEY_PASSPHRASE", "test passphrase")
-    r = CliRunner().invoke(main, ["keygen", "--out-dir", str(tmp_path / "keys"), "--name", "t"])
-    assert r.exit_code == 0, r.output
-    return tmp_path / "keys" / "t.private.pem"
-
 
 def _leftovers(out: Path) -> list[str]:
     return sorted(p.name for p in out.iterdir()) if out.exists() else []

@@ -21,28 +21,12 @@ from skimage.metrics import structural_similarity
 from redact.cli import main
 from redact.errors import OutputError
 from redact.pipeline import ProcessSettings, process_video
-from redact.pose import PoseEstimator
-from redact.records import Poses
 from redact.signing import Signer
 from redact.tracksheet import CROP_HEIGHT, CROP_MARGIN, README_NAME, make_track_sheet
 
+from conftest import ScriptedEstimator
+
 SEED = bytes(range(32))
-
-
-class Scripted:
-    """The default estimator, except: raises on chosen calls (fault frames), finds nobody on others."""
-
-    def __init__(self, faults=(), misses=()):
-        self.inner = PoseEstimator.default()
-        self.faults, self.misses, self.calls = set(faults), set(misses), 0
-
-    def estimate(self, image):
-        i = self.calls
-        self.calls += 1
-        if i in self.faults:
-            raise RuntimeError(f"injected fault at call {i}")
-        poses = self.inner.estimate(image)
-        return Poses.empty() if i in self.misses else poses
 
 
 def _process_tracks(clip_path: Path, out: Path, settings: ProcessSettings, estimator=None) -> list[dict]:
@@ -80,8 +64,8 @@ def test_ids_match_with_faults_misses_and_a_detection_stride(crossing_clip, tmp_
     # detection run (detect_every=2) are predicted by both.
     settings = ProcessSettings(detect_every=2)
     faults, misses = {3, 11}, {6, 7}
-    items = make_track_sheet(crossing_clip.path, tmp_path / "s", settings, estimator=Scripted(faults, misses))
-    processed = _process_tracks(crossing_clip.path, tmp_path / "p", settings, estimator=Scripted(faults, misses))
+    items = make_track_sheet(crossing_clip.path, tmp_path / "s", settings, estimator=ScriptedEstimator(misses=misses, faults=faults))
+    processed = _process_tracks(crossing_clip.path, tmp_path / "p", settings, estimator=ScriptedEstimator(misses=misses, faults=faults))
     assert [_key(t) for t in items] == [_key(t) for t in processed]
     assert [(t["first_t"], t["last_t"]) for t in items] == [(t["first_t"], t["last_t"]) for t in processed]
 
