@@ -9,8 +9,9 @@ Two detectors scan the video (RGB frames [H,W,3]):
   the results (see `face_tiles` and `merge_detections`). On the demo clip (1280×720, every
   10th frame) the whole frame alone gave 29 face detections, whole frame plus tiles 76; on its
   redacted copy both gave 0;
-- persons: the pose model (YOLO11n-pose) at a larger input than processing uses (960 px long
-  side instead of 640), which finds smaller and partly hidden people.
+- persons: the float32 pose model (YOLO11n-pose; processing runs its int8 copy by default) at a
+  larger input than processing uses (960 px long side instead of 640), which finds smaller and
+  partly hidden people.
 
 The redaction draws light-grey stick figures on solid mid-grey regions, and the pose model does
 "see" a person in some stick figures: on our redacted demo clip (demo_clips/ticket_hall.mp4,
@@ -49,7 +50,7 @@ from typing import Callable
 import numpy as np
 
 from redact.errors import InputError
-from redact.models import DEFAULT_FACE_MODEL, DEFAULT_POSE_MODEL
+from redact.models import DEFAULT_FACE_MODEL, FLOAT_POSE_MODEL
 
 Box = tuple[float, float, float, float]  # x1, y1, x2, y2 in frame pixels
 Detection = tuple[Box, float]  # (box, score)
@@ -371,7 +372,7 @@ class _Detectors:
         face_entry = get_model(settings.face_model, task="face-detection")
         if face_entry.task != "face-detection":
             raise InputError(f"model {face_entry.id} is not a face detector (task {face_entry.task})")
-        pose_entry = get_model(DEFAULT_POSE_MODEL, task="pose")
+        pose_entry = get_model(FLOAT_POSE_MODEL, task="pose")
         self.face_score = float(settings.face_score if settings.face_score is not None
                                 else face_entry.thresholds.get("score", 0.6))
         self.faces = FaceDetector(open_session(face_entry, settings.threads), score_threshold=self.face_score)

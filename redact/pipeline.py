@@ -17,7 +17,7 @@ import time
 from collections import deque
 from dataclasses import asdict, dataclass, field, replace
 from pathlib import Path
-from typing import Callable
+from typing import Callable, Iterable
 
 import numpy as np
 
@@ -28,10 +28,12 @@ from redact.pose import PoseEstimator, PoseSettings
 from redact.quality import QualityMonitor, ReviewRange, ReviewRules, encode_quality_line, review_document
 from redact.records import Poses, Tracks
 from redact.render import RenderSettings, obscure_all, obscurer_for, render_frame
-from redact.stages import WriteBehind, read_ahead
+from redact.stages import WriteBehind, map_ahead, read_ahead
 from redact.track import Tracker, TrackerConfig
 
 VIDEO_NAME = "redacted.mp4"
+#: Upper bound of frames inferred at once (common practice: beyond a few, ordering and memory cost more than they gain).
+MAX_MODEL_FRAMES = 4
 PACKAGE_NAME = "package"
 
 
@@ -74,15 +76,28 @@ class ProcessSettings:
 
     @property
     def model_threads(self) -> int:
-        """onnxruntime threads: `threads` when given; else every core when the model runs on every
-        frame (it dominates), and one core less with a detection stride, where decoding, drawing
-        and encoding dominate and need a core of their own (see benchmarks/README.md)."""
+        """onnxruntime intra-op threads of each model run: `threads` when given; with a detection
+        stride every core but one (decoding, drawing and encoding dominate there and need a core of
+        their own); else the cores divided among the frames inferred at once (model_frames)."""
         from redact.models import default_threads
 
         if self.threads:
             return self.threads
         cores = default_threads()
-        return max(1, cores - 1) if self.detect_every > 1 else cores
+        if self.detect_every > 1:
+            return max(1, cores - 1)
+        return max(1, cores // self.model_frames)
+
+    @property
+    def model_frames(self) -> int:
+        """How many frames the model works on at once: with every frame detected and `threads` not
+        given, one per core up to MAX_MODEL_FRAMES (on few cores, whole frames side by side keep the
+        cores busier than one frame's operators split over threads: benchmarks/README.md); else 1."""
+        from redact.models import default_threads
+
+        if self.threads or self.detect_every > 1:
+            return 1
+        return max(1, min(default_threads(), MAX_MODEL_FRAMES))
 
     def record(self) -> dict:
         """The settings as plain JSON values (for the log and the predicate).
@@ -93,6 +108,7 @@ class ProcessSettings:
         """
         d = asdict(self)
         d["threads"] = self.model_threads
+        d["model_frames"] = self.model_frames
         return d
 
 
@@ -126,16 +142,13 @@ def tracker_config_for(settings: ProcessSettings, fps: float) -> TrackerConfig:
     return replace(settings.tracker, max_coast_frames=int(round(settings.coast_seconds * (fps or 25.0))))
 
 
-def track_step(estimator, tracker: Tracker, frame, detect_every: int) -> Tracks:
-    """Detection (on every detect_every-th frame) and tracking for one decoded frame.
-
-    Raises on a frame the decoder flagged as damaged, so the caller fails closed. The track
-    sheet calls this too, so that its ids are the ones a run with the same settings assigns.
-    """
+def detect(estimator, frame, detect_every: int) -> Poses | None:
+    """The people in one decoded frame, or None on frames the stride skips; raises on a frame the
+    decoder flagged as damaged. Independent of other frames, so frames may be detected in parallel.
+    The track sheet calls this too, so that its ids are the ones a run with the same settings assigns."""
     if frame.corrupt:
         raise RedactError("the decoder reported damaged data in this frame")
-    poses = estimator.estimate(frame.image) if frame.index % detect_every == 0 else None
-    return tracker.update(poses, frame.t, frame.index)
+    return estimator.estimate(frame.image) if frame.index % detect_every == 0 else None
 
 
 def frame_ranges(indices: list[int]) -> list[list[int]]:
@@ -189,7 +202,11 @@ class _Stats:
 
 class _Lookback:
     """Holds the last few rendered frames back from the encoder; a newly detected person is
-    obscured in them too, where they first appeared (box with the tracker's widest margin)."""
+    obscured in them too, where they first appeared (box with the tracker's widest margin).
+
+    "New" means new to the tracker, not newly obscured: a person a plan keeps visible who starts
+    to be obscured when they overlap someone (kept_overlap) was shown on purpose before, so the
+    frames before are left as they are."""
 
     def __init__(self, frames: int, obscurer, region_settings, margin: float):
         self.pending: deque = deque()
@@ -199,12 +216,20 @@ class _Lookback:
         self.margin = margin
         self.seen: set[int] = set()
 
-    def push(self, index: int, pts: int, image: np.ndarray, tracks: Tracks | None, stats: "_Stats"):
-        """Add one rendered frame; returns the frames now old enough to encode, oldest first."""
+    def push(self, index: int, pts: int, image: np.ndarray, tracks: Tracks | None, stats: "_Stats",
+             all_ids: Iterable[int] = ()):
+        """Add one rendered frame; returns the frames now old enough to encode, oldest first.
+
+        tracks: the people obscured in this frame; all_ids: every track id of the frame, including
+        people kept visible (they are not new when they later have to be obscured)."""
         from redact.regions import person_region
 
         if tracks is not None and len(tracks):
             new = [k for k, i in enumerate(tracks.ids.tolist()) if i not in self.seen]
+        else:
+            new = []
+        self.seen.update(int(i) for i in all_ids)
+        if new:
             self.seen.update(tracks.ids.tolist())
             stats.new_tracks += len(new)
             for k in new:
@@ -243,12 +268,15 @@ class _FrameFinisher:
 
     def _render(self, frame, tracks: Tracks, decision) -> tuple[np.ndarray, Tracks, tuple[str, ...]]:
         style = self.settings.render
+        every = self.settings.detect_every
         if decision is None:
-            return render_frame(frame.image, tracks, style, plate=self.plate, obscurer=self.obscurer), tracks, ()
+            out = render_frame(frame.image, tracks, style, plate=self.plate, obscurer=self.obscurer, detect_every=every)
+            return out, tracks, ()
         extra = ("kept_overlap",) if decision.overlap_ids else ()
         if decision.whole_frame:
             return obscure_all(frame.image), decision.obscure, extra
-        out = render_frame(frame.image, decision.obscure, style, plate=self.plate, obscurer=self.obscurer)
+        out = render_frame(frame.image, decision.obscure, style, plate=self.plate, obscurer=self.obscurer,
+                           detect_every=every)
         if decision.mask is not None:
             out = self.obscurer.apply(out, decision.mask)
         return out, decision.obscure, extra
@@ -267,7 +295,8 @@ class _FrameFinisher:
             self.stats.fault(frame.index, error or "unknown")
         status = rows.STATUS_OK if tracks is not None else rows.STATUS_FAULT
         pts = frame.pts if frame.pts is not None else frame.index
-        for _, ready_pts, ready in self.lookback.push(frame.index, pts, out, hidden, self.stats):
+        all_ids = tracks.ids.tolist() if tracks is not None else ()
+        for _, ready_pts, ready in self.lookback.push(frame.index, pts, out, hidden, self.stats, all_ids):
             self.encode(ready, ready_pts)
         self.skel.write(rows.encode_row(frame.index, frame.pts, frame.t, tracks or Tracks.empty(), status))
         self.qual.write(encode_quality_line(self.monitor.observe(frame.index, frame.t, frame.image, tracks,
@@ -321,7 +350,7 @@ def process_video(source: str | Path, out_dir: str | Path, signer, settings: Pro
     source, out_dir = Path(source), Path(out_dir)
     info = probe(source)  # InputError for missing / not a video / zero frames
     video_final, pkg_final = _check_paths(source, out_dir, settings.archive)
-    entry = get_model(task="pose")
+    entry = get_model(settings.pose.model, task="pose")
     plan_obj = None
     if plan is not None:
         from redact.plan import load_plan
@@ -357,7 +386,7 @@ def _run(source, info, out_dir, staging, video_final, pkg_final, signer, setting
     log = TransformLog(pkg_dir / package.LOG)
     log.append("probe", **{k: v for k, v in info.as_dict().items() if k != "path"}, name=source.name)
     log.append("model", id=entry.id, sha256=entry.sha256, licence=entry.licence, runtime="onnxruntime-cpu",
-               threads=settings.model_threads)
+               threads=settings.model_threads, frames_at_once=settings.model_frames)
     log.append("detection", **asdict(settings.pose), detect_every=settings.detect_every)
     log.append("tracking", **asdict(tracker_cfg), coast_seconds=settings.coast_seconds)
     if plate is not None:
@@ -377,13 +406,19 @@ def _run(source, info, out_dir, staging, video_final, pkg_final, signer, setting
             open(pkg_dir / package.FRAMES, "wb") as frames_out:
         finisher = _FrameFinisher(settings, plate, obscurer, lookback, monitor, stats, encoder.submit,
                                   skel, qual, frames_out, progress, info.frames)
-        # Detection and tracking stay here, in frame order; rendering, the look-back, rows and
-        # quality run in one thread behind, so they overlap the next frame's inference.
+        # Detection may run on several frames at once (only the bundled estimator is known to be
+        # safe to share between threads); tracking stays here, in frame order. Rendering, the
+        # look-back, rows and quality run in one thread behind, overlapping the next inferences.
+        workers = settings.model_frames if isinstance(estimator, PoseEstimator) else 1
         with WriteBehind(finisher.finish, depth=2) as finishing:
-            for frame in read_ahead(reader.frames(), depth=4):
+            frames = read_ahead(reader.frames(), depth=4)
+            detected = map_ahead(lambda f: detect(estimator, f, settings.detect_every), frames, workers)
+            for frame, poses, failed in detected:
                 tracks = decision = error = None
                 try:
-                    tracks = track_step(estimator, tracker, frame, settings.detect_every)
+                    if failed is not None:
+                        raise failed
+                    tracks = tracker.update(poses, frame.t, frame.index)
                     if plan is not None:
                         decision = plan.decide(frame.index, frame.t, tracks, frame.image.shape)
                 except Exception as e:  # fail closed: the finisher obscures the whole frame

@@ -13,6 +13,7 @@ import cv2
 import numpy as np
 
 from redact.errors import InputError
+from redact.models import DEFAULT_POSE_MODEL
 from redact.records import Poses
 from redact.skeleton import NUM_KEYPOINTS
 
@@ -25,6 +26,7 @@ MAX_SIDE = 20000
 class PoseSettings:
     """Detection settings: model input long side, person score threshold, NMS IoU, max people.
 
+    model: id of the bundled pose model (`redact models` lists them; models_manifest/ says what each is).
     containment: a box lying at least this fraction inside a higher-scoring box is dropped as a
     duplicate (0 = off). The detector often reports a partly visible or bent person twice, a
     whole-body box and a part box inside it; plain IoU NMS keeps both because their IoU is low.
@@ -32,6 +34,7 @@ class PoseSettings:
     (common practice, "intersection over the smaller area").
     """
 
+    model: str = DEFAULT_POSE_MODEL
     input_long_side: int = 640
     score_threshold: float = 0.25
     nms_iou: float = 0.6
@@ -101,10 +104,13 @@ def letterbox(image: np.ndarray, in_w: int, in_h: int) -> tuple[np.ndarray, Lett
     resized = cv2.resize(image, (new_w, new_h), interpolation=interp) if (new_w, new_h) != (w, h) else image
     pad_x, pad_y = (in_w - new_w) / 2, (in_h - new_h) / 2
     top, left = int(round(pad_y - 0.1)), int(round(pad_x - 0.1))
-    canvas = np.full((in_h, in_w, 3), PAD_VALUE, np.uint8)
-    canvas[top:top + new_h, left:left + new_w] = resized
-    tensor = canvas.transpose(2, 0, 1)[None].astype(np.float32) * (1.0 / 255.0)
-    return np.ascontiguousarray(tensor), Letterbox(r, left, top, w, h, in_w, in_h)
+    # Written plane by plane straight into the NCHW tensor: the same float32 values as scaling a
+    # padded HWC canvas, without its strided transpose (about 5x less time at 720p).
+    unit = np.float32(1.0 / 255.0)
+    tensor = np.full((1, 3, in_h, in_w), np.float32(PAD_VALUE) * unit, np.float32)
+    for c in range(3):
+        np.multiply(resized[:, :, c], unit, out=tensor[0, c, top:top + new_h, left:left + new_w], casting="unsafe")
+    return tensor, Letterbox(r, left, top, w, h, in_w, in_h)
 
 
 def nms(boxes: np.ndarray, scores: np.ndarray, iou: float, containment: float = 0.0) -> np.ndarray:
@@ -175,10 +181,10 @@ class PoseEstimator:
 
     @classmethod
     def default(cls, settings: PoseSettings = PoseSettings(), threads: int | None = None) -> "PoseEstimator":
-        """The bundled default model, hash-checked, on the CPU."""
+        """The bundled model settings.model names, hash-checked, on the CPU."""
         from redact.models import get_model, open_session
 
-        entry = get_model(task="pose")
+        entry = get_model(settings.model, task="pose")
         return cls(open_session(entry, threads), settings)
 
     def input_size(self, width: int, height: int) -> tuple[int, int]:

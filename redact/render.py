@@ -204,22 +204,24 @@ class StickFigure:
     def draw(self, image: np.ndarray, keypoints: np.ndarray) -> np.ndarray:
         """A new image with figures for keypoints [M,17,3] (x, y, conf) drawn on it."""
         out = _check_image(image).copy()
+        self.draw_into(out, keypoints)
+        return out
+
+    def draw_into(self, out: np.ndarray, keypoints: np.ndarray) -> None:
+        """Draw figures for keypoints [M,17,3] straight into `out` (RGB uint8, writable)."""
         kp = np.asarray(keypoints, np.float64).reshape(-1, 17, 3)
+        if not len(kp):
+            return
         lw = self.line_width(out.shape)
         colour = (self.grey, self.grey, self.grey)
-        h, w = out.shape[:2]
-        lim = 4 * max(h, w)  # keep coordinates within int range; lines are clipped by OpenCV
-        for person in kp:
+        lim = 4 * max(out.shape[0], out.shape[1])  # keep coordinates within int range; OpenCV clips lines
+        # Rounded once for all keypoints (half to even, as Python's round), then plain ints per link.
+        drawn = (np.isfinite(kp).all(axis=2) & (kp[:, :, 2] >= self.threshold)).tolist()
+        xy = np.rint(np.clip(np.nan_to_num(kp[:, :, :2]), -lim, lim)).astype(np.int64).tolist()
+        for pts, ok in zip(xy, drawn):
             for a, b in LINKS:
-                pa, pb = person[a], person[b]
-                if not (np.isfinite(pa).all() and np.isfinite(pb).all()):
-                    continue
-                if pa[2] < self.threshold or pb[2] < self.threshold:
-                    continue
-                p1 = (int(round(np.clip(pa[0], -lim, lim))), int(round(np.clip(pa[1], -lim, lim))))
-                p2 = (int(round(np.clip(pb[0], -lim, lim))), int(round(np.clip(pb[1], -lim, lim))))
-                cv2.line(out, p1, p2, colour, lw, lineType=cv2.LINE_AA)
-        return out
+                if ok[a] and ok[b]:
+                    cv2.line(out, tuple(pts[a]), tuple(pts[b]), colour, lw, lineType=cv2.LINE_AA)
 
 
 @dataclass(frozen=True)
@@ -229,6 +231,9 @@ class RenderSettings:
     style: one of STYLES. figure: draw stick figures on top (always on for style "figure").
     regions: how far each region reaches (margins, keypoint threshold for the hull).
     figure_threshold: keypoint confidence needed at both ends of a drawn limb (common practice).
+    figure_hold: a person no longer detected keeps their figure for this many missed detections,
+    then only the obscured region stays (a stale pose drawn where a prediction puts it would show
+    a person who may not be there; the region itself stays for the whole coast, failing closed).
     line_width: 0 = scaled to the frame. blur_fraction: blur sigma as a fraction of the region
     size. pixel_blocks: blocks across the region's shorter side.
     """
@@ -237,6 +242,7 @@ class RenderSettings:
     figure: bool = False
     regions: RegionSettings = field(default_factory=RegionSettings)
     figure_threshold: float = 0.5
+    figure_hold: int = 2
     line_width: int = 0
     blur_fraction: float = 0.25
     pixel_blocks: float = 6.0
@@ -246,6 +252,8 @@ class RenderSettings:
             raise RedactError(f"unknown style {self.style!r}; choose one of: {', '.join(STYLES)}")
         if not 0.0 <= self.figure_threshold <= 1.0:
             raise RedactError(f"figure_threshold must be within 0..1, got {self.figure_threshold}")
+        if int(self.figure_hold) != self.figure_hold or self.figure_hold < 0:
+            raise RedactError(f"figure_hold must be a whole number >= 0, got {self.figure_hold}")
         if self.line_width < 0 or not self.blur_fraction > 0 or not self.pixel_blocks > 0:
             raise RedactError("line_width must be >= 0; blur_fraction and pixel_blocks must be positive")
 
@@ -274,12 +282,14 @@ def obscure_all(image: np.ndarray) -> np.ndarray:
 
 
 def render_frame(image: np.ndarray, tracks: Tracks, style: RenderSettings,
-                 plate: Plate | None = None, obscurer: Obscurer | None = None) -> np.ndarray:
+                 plate: Plate | None = None, obscurer: Obscurer | None = None, detect_every: int = 1) -> np.ndarray:
     """A new image: every tracked person's region obscured, then figures drawn when asked.
 
     image [H,W,3] uint8 RGB (never written into). Pass `obscurer` to reuse one across frames
     (e.g. a PlateFill that caches its resized plate); otherwise it is made from `style`.
-    Raises RedactError on unusable input; the caller then uses obscure_all (fail closed).
+    detect_every: the detection stride, so that style.figure_hold counts missed detections
+    rather than frames. Raises RedactError on unusable input; the caller then uses obscure_all
+    (fail closed).
     """
     img = _check_image(image)
     ob = obscurer if obscurer is not None else obscurer_for(style, plate)
@@ -292,6 +302,6 @@ def render_frame(image: np.ndarray, tracks: Tracks, style: RenderSettings,
         else:
             ob.apply_into(out, region.rect, region.crop_mask(), region.size)
     if style.draws_figures and len(tracks):
-        fig = StickFigure(style.figure_threshold, style.line_width)
-        out = fig.draw(out, tracks.keypoints)
-    return np.ascontiguousarray(out)
+        held = tracks.misses < max(1, int(detect_every)) * (style.figure_hold + 1)
+        StickFigure(style.figure_threshold, style.line_width).draw_into(out, tracks.keypoints[held])
+    return out

@@ -1,17 +1,21 @@
 """Overlap decoding, inference and encoding: one thread each side of the model, bounded queues.
 
 onnxruntime, OpenCV and FFmpeg release the GIL while they work, so decoding the next frames and
-encoding the previous ones run beside inference. Queues are bounded, so memory does not grow with
-clip length; an error on either side stops both and is re-raised in the caller's thread.
+encoding the previous ones run beside inference, and several frames can be inferred at once
+(`map_ahead`). Queues are bounded, so memory does not grow with clip length; an error on either
+side stops both and is re-raised in the caller's thread.
 """
 
 from __future__ import annotations
 
 import queue
 import threading
+from collections import deque
+from concurrent.futures import ThreadPoolExecutor
 from typing import Callable, Iterable, Iterator, TypeVar
 
 T = TypeVar("T")
+R = TypeVar("R")
 _END = object()
 
 
@@ -57,6 +61,41 @@ def read_ahead(items: Iterable[T], depth: int = 4) -> Iterator[T]:
     finally:
         stop.set()
         thread.join()
+
+
+def map_ahead(fn: Callable[[T], R], items: Iterable[T], workers: int = 1) -> Iterator[tuple[T, R | None, Exception | None]]:
+    """Yield (item, fn(item), None) in the order of `items`, with up to `workers` calls running at
+    once in a thread pool; a call that raises gives (item, None, error) instead, so the caller can
+    fail closed on that one item. workers=1 calls fn in the caller's thread, one item at a time.
+
+    At most 2×workers items are taken from `items` ahead of the one being yielded (bounded memory).
+    fn must be safe to call from several threads at once when workers > 1.
+    """
+
+    def call(item):
+        try:
+            return fn(item), None
+        except Exception as e:  # handed to the caller with its item
+            return None, e
+
+    if workers <= 1:
+        for item in items:
+            yield (item, *call(item))
+        return
+    with ThreadPoolExecutor(max_workers=workers, thread_name_prefix="redact-infer") as pool:
+        pending: deque = deque()
+        try:
+            for item in items:
+                pending.append((item, pool.submit(call, item)))
+                if len(pending) >= 2 * workers:
+                    head, fut = pending.popleft()
+                    yield (head, *fut.result())
+            while pending:
+                head, fut = pending.popleft()
+                yield (head, *fut.result())
+        finally:
+            for _, fut in pending:
+                fut.cancel()
 
 
 class WriteBehind:

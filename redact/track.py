@@ -7,6 +7,11 @@ The tracker owns only the lifecycle of a track: predict, match, hit, age, retire
   1955; scipy.optimize.linear_sum_assignment solves the same problem) on a cost from redact.costs ("iou", "oks", "iou+oks"), with pairs above `max_cost` or below
   `min_iou` gated out. Gated entries get a large finite cost, so the solver first maximises the
   number of feasible pairs, then minimises their total cost; gated pairs are then dropped.
+  Tracks with fewer than `established_hits` observations are matched in a second round, on the
+  detections the established tracks left (DeepSORT's order, Wojke et al. 2017); tracks still
+  unmatched may then take a leftover detection by box overlap alone (`fallback_iou`, SORT's
+  association, Bewley et al. 2016). These rounds change which id a detection continues, never
+  whether a person is reported.
 - Hit: a matched track takes the detection's box and score (never smoothed: the obscured region
   follows the raw evidence); its keypoints go through the One Euro filter (redact.smoothing)
   because they are drawn as stick figures. Matching uses the last detected (raw) keypoints,
@@ -40,6 +45,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from scipy.optimize import linear_sum_assignment
+
 from redact.costs import COST_NAMES, iou_matrix, make_cost
 from redact.errors import InputError
 from redact.records import Poses, Tracks
@@ -60,7 +67,11 @@ class TrackerConfig:
     max_coast_frames: detection frames a lost track is still reported (0 = drop at once).
     base_margin: margin of an observed track; margin_growth: added per frame since the last
     observation; max_margin: cap on the total. velocity_smoothing: weight of the newest velocity
-    measurement (1 = no smoothing). One Euro parameters: Casiez et al. 2012 (redact.smoothing).
+    measurement (1 = no smoothing). established_hits: tracks observed fewer times are matched
+    after the others, on the detections those left (1 = one joint assignment). fallback_iou: a
+    track still unmatched then takes a leftover detection its predicted box overlaps by at least
+    this IoU (0 = off; 0.3 is SORT's IOU_min, Bewley et al. 2016) when it has gone unmatched for
+    fallback_after detection frames, this one included. One Euro parameters: Casiez et al. 2012 (redact.smoothing).
     Defaults are our own choices (no published source). velocity_smoothing was picked on the TUD
     validation in tests/test_track_motmetrics.py; the cost weights favour OKS because on real pose
     output of two people crossing (tests/test_process.py) box overlap alone swaps their ids while
@@ -78,6 +89,9 @@ class TrackerConfig:
     margin_growth: float = 0.05
     max_margin: float = 0.6
     velocity_smoothing: float = 0.2
+    established_hits: int = 3
+    fallback_iou: float = 0.3
+    fallback_after: int = 3
     smooth_keypoints: bool = True
     one_euro_min_cutoff: float = 1.5
     one_euro_beta: float = 0.05
@@ -94,6 +108,12 @@ class TrackerConfig:
             raise InputError(f"max_coast_frames must be a whole number >= 0, got {self.max_coast_frames}")
         if not (0.0 <= self.base_margin <= self.max_margin and self.margin_growth >= 0.0):
             raise InputError("margins must satisfy 0 <= base_margin <= max_margin and margin_growth >= 0")
+        if not 0.0 <= self.fallback_iou <= 1.0:
+            raise InputError(f"fallback_iou must be in 0..1, got {self.fallback_iou}")
+        if int(self.fallback_after) != self.fallback_after or self.fallback_after < 1:
+            raise InputError(f"fallback_after must be a whole number >= 1, got {self.fallback_after}")
+        if int(self.established_hits) != self.established_hits or self.established_hits < 1:
+            raise InputError(f"established_hits must be a whole number >= 1, got {self.established_hits}")
         if not 0.0 < self.velocity_smoothing <= 1.0:
             raise InputError(f"velocity_smoothing must be in (0, 1], got {self.velocity_smoothing}")
         self.one_euro()  # validates the filter parameters
@@ -219,8 +239,6 @@ class Tracker:
 
     def _assign(self, cost: np.ndarray, iou: np.ndarray) -> list[tuple[int, int]]:
         """Hungarian assignment with gating; returns (track row, detection column) pairs."""
-        from scipy.optimize import linear_sum_assignment
-
         if cost.size == 0:
             return []
         allowed = (cost <= self.config.max_cost) & (iou >= self.config.min_iou)
@@ -232,7 +250,32 @@ class Tracker:
         det_kps = poses.keypoints.astype(np.float64)
         pred_boxes, pred_kps = self._predicted(t, raw=True)
         cost = self._cost(pred_boxes, pred_kps, det_boxes, det_kps)
-        pairs = self._assign(cost, iou_matrix(pred_boxes, det_boxes))
+        iou = iou_matrix(pred_boxes, det_boxes)
+        # Established tracks first, then young ones on the detections left (the matching order of
+        # Wojke et al. 2017, DeepSORT): a stray detection beside a person, which starts a track of
+        # its own, must not then take that person's next detection from the person's own track.
+        young = np.array([tr.hits < self.config.established_hits for tr in self._live], bool)
+        old_rows, young_rows = np.nonzero(~young)[0], np.nonzero(young)[0]
+        pairs = [(int(old_rows[r]), c) for r, c in self._assign(cost[old_rows], iou[old_rows])]
+        left = np.array(sorted(set(range(len(poses))) - {c for _, c in pairs}), np.int64)
+        if len(young_rows) and len(left):
+            sub = self._assign(cost[np.ix_(young_rows, left)], iou[np.ix_(young_rows, left)])
+            pairs += [(int(young_rows[r]), int(left[c])) for r, c in sub]
+        # Last round, on box overlap alone (SORT's association, Bewley et al. 2016, IoU >= 0.3): a
+        # track that coasted for a while drifts from its person (the velocity is a guess), so the
+        # pose cost can fail although the person is plainly back where it was headed; continuing
+        # it beats starting a new id. Only tracks lost for fallback_after detection frames or more:
+        # right after a miss the pose cost is reliable, and at a crossing box overlap is not.
+        if self.config.fallback_iou > 0:
+            matched = {r for r, _ in pairs}
+            rows = np.array([i for i, tr in enumerate(self._live)
+                             if i not in matched and tr.det_misses + 1 >= self.config.fallback_after], np.int64)
+            left = np.array(sorted(set(range(len(poses))) - {c for _, c in pairs}), np.int64)
+            if len(rows) and len(left):
+                ov = iou[np.ix_(rows, left)]
+                r_idx, c_idx = linear_sum_assignment(-ov)
+                pairs += [(int(rows[r]), int(left[c])) for r, c in zip(r_idx, c_idx)
+                          if ov[r, c] >= self.config.fallback_iou]
 
         matched_tracks = {r for r, _ in pairs}
         matched_dets = {c for _, c in pairs}

@@ -1,8 +1,8 @@
 """Track sheet: for the operator answering a request for footage, one picture per tracked person.
 
 `make_track_sheet` runs decode → pose → tracker with exactly the settings of `redact process`
-(PoseEstimator.default(settings.pose, settings.model_threads), Tracker(tracker_config_for(settings, fps)),
-frames skipped the same way the pipeline skips failed frames), so its track ids are the ids a run
+(PoseEstimator.default(settings.pose, settings.model_threads), as many frames at once,
+Tracker(tracker_config_for(settings, fps)), failed frames skipped the same way), so its track ids are the ids a run
 with the same settings assigns. The operator finds the requester's id(s) on the sheet and writes
 them into a redaction plan (redact.plan); the sheet's plan-template.json carries the source hash
 and settings fingerprint the plan needs.
@@ -25,8 +25,10 @@ from pathlib import Path
 import numpy as np
 
 from redact.errors import OutputError
-from redact.pipeline import ProcessSettings, track_step, tracker_config_for
+from redact.pipeline import ProcessSettings, detect, tracker_config_for
 from redact.plan import PLAN_VERSION, ids_fingerprint
+from redact.pose import PoseEstimator
+from redact.stages import map_ahead
 
 TRACKS_NAME = "tracks.json"
 README_NAME = "README.txt"
@@ -123,12 +125,15 @@ def _track_pass(source: Path, settings: ProcessSettings, estimator, fps: float):
     tracker = Tracker(tracker_config_for(settings, fps))
     seen: dict[int, _Seen] = {}
     every = settings.detect_every
+    workers = settings.model_frames if isinstance(estimator, PoseEstimator) else 1  # as the pipeline
     with VideoReader(source, threads=0) as reader:
         n = 0
-        for frame in reader.frames():
+        for frame, poses, failed in map_ahead(lambda f: detect(estimator, f, every), reader.frames(), workers):
             n += 1
-            try:  # the pipeline's own step; on a failed frame it skips the tracker: so do we
-                tracks = track_step(estimator, tracker, frame, every)
+            if failed is not None:  # the pipeline skips the tracker on a failed frame: so do we
+                continue
+            try:
+                tracks = tracker.update(poses, frame.t, frame.index)
             except Exception:  # noqa: BLE001 - mirror the pipeline's fail-closed skip
                 continue
             for k in np.nonzero(tracks.observed)[0]:
@@ -161,14 +166,13 @@ def make_track_sheet(source: str | Path, out_dir: str | Path, settings: ProcessS
     hidden temporary folder beside it and renames it into place at the end.
     """
     from redact.models import get_model
-    from redact.pose import PoseEstimator
     from redact.video import probe
 
     source, out_dir = Path(source), Path(out_dir)
     info = probe(source)
     if os.path.lexists(out_dir):
         raise OutputError(f"{out_dir} already exists; choose a new --out (a track sheet is never overwritten)")
-    entry = get_model(task="pose")
+    entry = get_model(settings.pose.model, task="pose")
     if estimator is None:
         estimator = PoseEstimator.default(settings.pose, settings.model_threads)
     parent = out_dir.parent

@@ -28,6 +28,7 @@ from fractions import Fraction
 from pathlib import Path
 from typing import Iterator
 
+import cv2
 import numpy as np
 
 from redact.errors import InputError, VideoError
@@ -530,8 +531,10 @@ class VideoWriter:
         if (self.coded_width, self.coded_height) != (self.width, self.height):
             img = np.pad(img, ((0, self.coded_height - self.height), (0, self.coded_width - self.width), (0, 0)),
                          constant_values=128)
-        rgb = av.VideoFrame.from_ndarray(np.ascontiguousarray(img), format="rgb24")
-        vf = rgb.reformat(format="yuv420p", dst_colorspace="ITU601", dst_color_range="MPEG")
+        # BT.601 limited-range 4:2:0 (what the stream's colour tags say), chroma averaged over 2×2
+        # pixels; OpenCV's SIMD conversion takes about a fifth of swscale's time at 720p.
+        yuv = cv2.cvtColor(np.ascontiguousarray(img), cv2.COLOR_RGB2YUV_I420)
+        vf = av.VideoFrame.from_ndarray(yuv, format="yuv420p")
         vf.pts, vf.time_base = pts, self.time_base
         try:
             self._mux(self._stream.encode(vf))

@@ -173,6 +173,27 @@ def test_stick_figure_draws_confident_limbs_only():
     assert drawn.size and (drawn[:, 0] == drawn[:, 1]).all() and (drawn[:, 1] == drawn[:, 2]).all()
 
 
+def test_figure_is_dropped_after_the_hold_but_the_region_stays():
+    """A person missed for more than figure_hold detections keeps an obscured region and loses the
+    figure; with a detection stride the hold counts detections, not frames."""
+    img = np.full((200, 200, 3), 60, np.uint8)
+    kp = np.zeros((1, 17, 3), np.float32)
+    kp[0, 5], kp[0, 7] = (80, 60, 0.9), (80, 140, 0.9)  # left shoulder and elbow
+    box = np.array([[60, 40, 140, 160]])
+
+    def render(misses: int, every: int = 1):
+        tracks = Tracks(np.array([1]), box, np.array([0.9]), kp, np.array([misses == 0]), np.array([misses], np.int32))
+        return render_frame(img, tracks, RenderSettings(style="figure", figure_hold=2), detect_every=every)
+
+    limb = (slice(70, 131), 80)
+    for misses, every, drawn in ((0, 1, True), (2, 1, True), (3, 1, False), (8, 3, True), (9, 3, False)):
+        out = render(misses, every)
+        assert (out[limb] == FIGURE_GREY).all() == drawn, (misses, every)
+        assert (out[100, 100] == FILL_GREY).all()  # the person's region is obscured either way
+    with pytest.raises(RedactError):
+        RenderSettings(figure_hold=-1)
+
+
 def test_blur_strength_scales_with_region_size(scene):
     img, _, _ = scene
     mask = np.zeros(img.shape[:2], bool)

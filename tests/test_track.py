@@ -207,3 +207,40 @@ def test_explicit_frame_indices_go_into_summary():
     (s,) = tr.summary()
     assert (s.first_frame, s.last_frame, s.frames_observed, s.frames_predicted) == (10, 12, 2, 1)
     assert (s.first_t, s.last_t) == (0.4, 0.48)
+
+
+@pytest.mark.parametrize("established_hits, expected_id", [(3, 1), (1, 2)])
+def test_established_track_is_matched_before_a_new_neighbour(established_hits, expected_id):
+    """DeepSORT's matching order (Wojke et al. 2017): A walks right 10 px a frame; at frame 10 a
+    duplicate box appears 12 px behind A (a new track, id 2); at frame 11 A's only detection lands
+    exactly on the duplicate. Matched jointly (established_hits=1) the newcomer wins on cost; with
+    established tracks first, A keeps id 1."""
+    tr = Tracker(TrackerConfig(established_hits=established_hits))
+    for f in range(10):
+        tr.update(poses_of([person(100 + 10 * f, 200)]), f / FPS)
+    out = tr.update(poses_of([person(200, 200), person(188, 200)]), 10 / FPS)
+    assert out.ids.tolist() == [1, 2]
+    out = tr.update(poses_of([person(188, 200)]), 11 / FPS)
+    assert out.ids[out.observed].tolist() == [expected_id]
+
+
+@pytest.mark.parametrize("misses, fallback_iou, same_id", [(8, 0.3, True), (8, 0.0, False), (1, 0.3, False)])
+def test_lost_track_is_continued_by_overlap_only_after_a_long_loss(misses, fallback_iou, same_id):
+    """SORT's IoU association (Bewley et al. 2016, IOU_min 0.3) as the last round: a person back
+    where the track predicts, with a pose the gated pose cost rejects (keypoints scrambled by up to
+    80 px), continues the track after 8 missed detections, but not after 1 (fallback_after=3),
+    and never with the round off."""
+    tr = Tracker(TrackerConfig(fallback_iou=fallback_iou))
+    for f in range(10):
+        tr.update(poses_of([person(200, 200)]), f / FPS)
+    for f in range(10, 10 + misses):
+        tr.update(Poses.empty(), f / FPS)
+    scrambled = np.random.default_rng(0).uniform(-80, 80, (NUM_KEYPOINTS, 2))
+    t = (10 + misses) / FPS
+    box, kp = person(204, 200, jitter=scrambled)
+    probe = Tracker(TrackerConfig(fallback_iou=0.0))  # the pose cost alone rejects this pair
+    probe.update(poses_of([person(200, 200)]), 0.0)
+    assert probe.update(poses_of([(box, kp)]), 1 / FPS).ids.tolist() == [1, 2]
+    out = tr.update(poses_of([(box, kp)]), t)
+    observed = out.ids[out.observed].tolist()
+    assert (observed == [1]) == same_id, observed

@@ -17,7 +17,11 @@ from typing import Any
 from redact.errors import ModelError
 
 MODELS_DIR = Path(__file__).resolve().parent
-DEFAULT_POSE_MODEL = "yolo11n-pose"
+# Processing runs the int8 model by default: on two cores it is what makes 720p real time, its
+# keypoints are a few pixels from the float32 model's (models_manifest/yolo11n-pose-int8.md).
+# The audit, an independent second look, keeps the float32 model at a larger input size.
+DEFAULT_POSE_MODEL = "yolo11n-pose-int8"
+FLOAT_POSE_MODEL = "yolo11n-pose"
 DEFAULT_FACE_MODEL = "face-detector-full-range"
 # The bundled model each task uses when no id is given (see models_manifest/).
 DEFAULT_MODELS = {"pose": DEFAULT_POSE_MODEL, "face-detection": DEFAULT_FACE_MODEL}
@@ -116,6 +120,9 @@ def open_session(entry: ModelEntry, threads: int | None = None, path: Path | Non
     opts.execution_mode = ort.ExecutionMode.ORT_SEQUENTIAL
     opts.graph_optimization_level = ort.GraphOptimizationLevel.ORT_ENABLE_ALL
     opts.log_severity_level = 3
+    # Idle pool threads sleep instead of spinning: spinning is faster for the model alone, but in
+    # the pipeline it burns the cores that decoding, drawing and encoding need (benchmarks/).
+    opts.add_session_config_entry("session.intra_op.allow_spinning", "0")
     try:
         return ort.InferenceSession(blob, sess_options=opts, providers=["CPUExecutionProvider"])
     except Exception as e:  # onnxruntime raises its own exception types
