@@ -1,4 +1,5 @@
-"""Milliseconds per frame of the pose engine: each input size, 1 and 2 threads, stages separately.
+"""Milliseconds per frame of the pose engine: each bundled pose model (float32 and int8), each
+input size, 1 and 2 threads, stages separately.
 
 Prints one table measured side by side in one run (this machine has 2 noisy cores: compare rows
 with each other, not with another run). Usage: python benchmarks/pose_speed.py [--repeats N]
@@ -12,7 +13,7 @@ import time
 
 import numpy as np
 
-from redact.models import get_model, open_session
+from redact.models import list_models, open_session
 from redact.pose import PoseEstimator, PoseSettings, decode
 
 # (label, source width, source height, long side): 16:9 video at three sizes, and a square input.
@@ -35,22 +36,22 @@ def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--repeats", type=int, default=15)
     args = ap.parse_args()
-    entry = get_model()
     rng = np.random.default_rng(0)
-    print(f"model {entry.id} ({entry.file}); median of {args.repeats} runs, ms per frame")
-    print(f"{'case':<24} {'threads':>7} {'pre':>7} {'model':>8} {'post':>7} {'total':>8}")
-    for threads in (1, 2):
-        session = open_session(entry, threads=threads)
-        for label, w, h, long_side in CASES:
-            est = PoseEstimator(session, PoseSettings(input_long_side=long_side, score_threshold=0.01))
-            image = rng.integers(0, 255, (h, w, 3), dtype=np.uint8)
-            tensor, lb = est.preprocess(image)
-            raw = est.infer(tensor)
-            pre = _median_ms(lambda: est.preprocess(image), args.repeats)
-            model = _median_ms(lambda: est.infer(tensor), args.repeats)
-            post = _median_ms(lambda: decode(raw, lb, est.settings), args.repeats)
-            print(f"{label:<24} {threads:>7} {pre:>7.1f} {model:>8.1f} {post:>7.1f} {pre + model + post:>8.1f}")
-
+    print(f"median of {args.repeats} runs, ms per frame")
+    print(f"{'model':<18} {'case':<24} {'threads':>7} {'pre':>7} {'model':>8} {'post':>7} {'total':>8}")
+    for entry in [m for m in list_models() if m.task == "pose"]:
+        for threads in (1, 2):
+            session = open_session(entry, threads=threads)
+            for label, w, h, long_side in CASES:
+                est = PoseEstimator(session, PoseSettings(input_long_side=long_side, score_threshold=0.01))
+                image = rng.integers(0, 255, (h, w, 3), dtype=np.uint8)
+                tensor, lb = est.preprocess(image)
+                raw = est.infer(tensor)
+                pre = _median_ms(lambda: est.preprocess(image), args.repeats)
+                model = _median_ms(lambda: est.infer(tensor), args.repeats)
+                post = _median_ms(lambda: decode(raw, lb, est.settings), args.repeats)
+                print(f"{entry.id:<18} {label:<24} {threads:>7} {pre:>7.1f} {model:>8.1f} {post:>7.1f} "
+                      f"{pre + model + post:>8.1f}")
 
 if __name__ == "__main__":
     main()
