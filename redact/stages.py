@@ -63,7 +63,8 @@ def read_ahead(items: Iterable[T], depth: int = 4) -> Iterator[T]:
         thread.join()
 
 
-def map_ahead(fn: Callable[[T], R], items: Iterable[T], workers: int = 1) -> Iterator[tuple[T, R | None, Exception | None]]:
+def map_ahead(fn: Callable[[T], R], items: Iterable[T],
+              workers: int = 1) -> Iterator[tuple[T, R | None, Exception | None]]:
     """Yield (item, fn(item), None) in the order of `items`, with up to `workers` calls running at
     once in a thread pool; a call that raises gives (item, None, error) instead, so the caller can
     fail closed on that one item. workers=1 calls fn in the caller's thread, one item at a time.

@@ -45,8 +45,6 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from scipy.optimize import linear_sum_assignment
-
 from redact.costs import COST_NAMES, iou_matrix, make_cost
 from redact.errors import InputError
 from redact.records import Poses, Tracks
@@ -71,7 +69,8 @@ class TrackerConfig:
     after the others, on the detections those left (1 = one joint assignment). fallback_iou: a
     track still unmatched then takes a leftover detection its predicted box overlaps by at least
     this IoU (0 = off; 0.3 is SORT's IOU_min, Bewley et al. 2016) when it has gone unmatched for
-    fallback_after detection frames, this one included. One Euro parameters: Casiez et al. 2012 (redact.smoothing).
+    fallback_after detection frames, this one included. One Euro parameters: Casiez et al. 2012
+    (redact.smoothing).
     Defaults are our own choices (no published source). velocity_smoothing was picked on the TUD
     validation in tests/test_track_motmetrics.py; the cost weights favour OKS because on real pose
     output of two people crossing (tests/test_process.py) box overlap alone swaps their ids while
@@ -237,45 +236,62 @@ class Tracker:
             kps[i, :, :2] += d
         return boxes, kps
 
-    def _assign(self, cost: np.ndarray, iou: np.ndarray) -> list[tuple[int, int]]:
-        """Hungarian assignment with gating; returns (track row, detection column) pairs."""
-        if cost.size == 0:
+    def _assign(self, cost: np.ndarray, iou: np.ndarray, rows: np.ndarray, cols: np.ndarray) -> list[tuple[int, int]]:
+        """Hungarian assignment with gating among the given track rows and detection columns;
+        returns (track row, detection column) pairs in the full matrices' indices."""
+        from scipy.optimize import linear_sum_assignment
+
+        if not len(rows) or not len(cols):
             return []
-        allowed = (cost <= self.config.max_cost) & (iou >= self.config.min_iou)
-        rows, cols = linear_sum_assignment(np.where(allowed, cost, _GATED))
-        return [(int(r), int(c)) for r, c in zip(rows, cols) if allowed[r, c]]
+        c, o = cost[np.ix_(rows, cols)], iou[np.ix_(rows, cols)]
+        allowed = (c <= self.config.max_cost) & (o >= self.config.min_iou)
+        r_idx, c_idx = linear_sum_assignment(np.where(allowed, c, _GATED))
+        return [(int(rows[r]), int(cols[k])) for r, k in zip(r_idx, c_idx) if allowed[r, k]]
+
+    def _overlap_round(self, iou: np.ndarray, rows: np.ndarray, cols: np.ndarray) -> list[tuple[int, int]]:
+        """Assignment on box overlap alone, pairs below fallback_iou dropped (SORT's association)."""
+        from scipy.optimize import linear_sum_assignment
+
+        if not len(rows) or not len(cols):
+            return []
+        o = iou[np.ix_(rows, cols)]
+        r_idx, c_idx = linear_sum_assignment(-o)
+        return [(int(rows[r]), int(cols[k])) for r, k in zip(r_idx, c_idx) if o[r, k] >= self.config.fallback_iou]
+
+    def _associate(self, cost: np.ndarray, iou: np.ndarray) -> list[tuple[int, int]]:
+        """(track, detection) pairs for one frame, in three rounds.
+
+        1. Established tracks, then 2. young ones on the detections left (the matching order of
+        Wojke et al. 2017, DeepSORT): a stray detection beside a person, which starts a track of
+        its own, must not then take that person's next detection from the person's own track.
+        3. Box overlap alone (SORT's association, Bewley et al. 2016, IoU >= 0.3) for tracks lost
+        fallback_after detections or more: a track that coasted drifts from its person (the
+        velocity is a guess), so the pose cost can fail although the person is plainly back where
+        it was headed. Not sooner: right after a miss the pose cost is reliable, and at a crossing
+        box overlap is not.
+        """
+        n_tracks, n_dets = cost.shape
+        cfg = self.config
+
+        def left(pairs) -> np.ndarray:
+            return np.array(sorted(set(range(n_dets)) - {c for _, c in pairs}), np.int64)
+
+        young = np.array([tr.hits < cfg.established_hits for tr in self._live], bool)
+        pairs = self._assign(cost, iou, np.nonzero(~young)[0], np.arange(n_dets))
+        pairs += self._assign(cost, iou, np.nonzero(young)[0], left(pairs))
+        if cfg.fallback_iou > 0:
+            matched = {r for r, _ in pairs}
+            lost = np.array([i for i, tr in enumerate(self._live)
+                             if i not in matched and tr.det_misses + 1 >= cfg.fallback_after], np.int64)
+            pairs += self._overlap_round(iou, lost, left(pairs))
+        return pairs
 
     def _match_and_update(self, poses: Poses, t: float, frame: int) -> set[int]:
         det_boxes = poses.boxes.astype(np.float64)
         det_kps = poses.keypoints.astype(np.float64)
         pred_boxes, pred_kps = self._predicted(t, raw=True)
         cost = self._cost(pred_boxes, pred_kps, det_boxes, det_kps)
-        iou = iou_matrix(pred_boxes, det_boxes)
-        # Established tracks first, then young ones on the detections left (the matching order of
-        # Wojke et al. 2017, DeepSORT): a stray detection beside a person, which starts a track of
-        # its own, must not then take that person's next detection from the person's own track.
-        young = np.array([tr.hits < self.config.established_hits for tr in self._live], bool)
-        old_rows, young_rows = np.nonzero(~young)[0], np.nonzero(young)[0]
-        pairs = [(int(old_rows[r]), c) for r, c in self._assign(cost[old_rows], iou[old_rows])]
-        left = np.array(sorted(set(range(len(poses))) - {c for _, c in pairs}), np.int64)
-        if len(young_rows) and len(left):
-            sub = self._assign(cost[np.ix_(young_rows, left)], iou[np.ix_(young_rows, left)])
-            pairs += [(int(young_rows[r]), int(left[c])) for r, c in sub]
-        # Last round, on box overlap alone (SORT's association, Bewley et al. 2016, IoU >= 0.3): a
-        # track that coasted for a while drifts from its person (the velocity is a guess), so the
-        # pose cost can fail although the person is plainly back where it was headed; continuing
-        # it beats starting a new id. Only tracks lost for fallback_after detection frames or more:
-        # right after a miss the pose cost is reliable, and at a crossing box overlap is not.
-        if self.config.fallback_iou > 0:
-            matched = {r for r, _ in pairs}
-            rows = np.array([i for i, tr in enumerate(self._live)
-                             if i not in matched and tr.det_misses + 1 >= self.config.fallback_after], np.int64)
-            left = np.array(sorted(set(range(len(poses))) - {c for _, c in pairs}), np.int64)
-            if len(rows) and len(left):
-                ov = iou[np.ix_(rows, left)]
-                r_idx, c_idx = linear_sum_assignment(-ov)
-                pairs += [(int(rows[r]), int(left[c])) for r, c in zip(r_idx, c_idx)
-                          if ov[r, c] >= self.config.fallback_iou]
+        pairs = self._associate(cost, iou_matrix(pred_boxes, det_boxes))
 
         matched_tracks = {r for r, _ in pairs}
         matched_dets = {c for _, c in pairs}
