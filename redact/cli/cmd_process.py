@@ -62,7 +62,7 @@ def _print_summary(result) -> None:
     click.echo(f"redacted video: {s['video']}")
     click.echo(f"package:        {s['package']}  (signed, key id {s['key_id']})")
     click.echo(f"frames: {s['frames']}  people tracked: {s['tracks']}  frames failed and fully obscured: "
-               f"{s['fault_frames']}  speed: {s['frames_per_second']} frames/s")
+               f"{s['fault_frames']}  speed: {s['frames_per_second']:.1f} frames/s")
     if result.review:
         click.echo(f"review before disclosure: {len(result.review)} range(s) flagged:")
         for r in result.review:
