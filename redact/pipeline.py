@@ -142,6 +142,13 @@ def tracker_config_for(settings: ProcessSettings, fps: float) -> TrackerConfig:
     return replace(settings.tracker, max_coast_frames=int(round(settings.coast_seconds * (fps or 25.0))))
 
 
+def inference_workers(settings: ProcessSettings, estimator) -> int:
+    """Frames to infer at once: settings.model_frames for an estimator that says it may be called
+    from several threads at once (`concurrent`, as PoseEstimator), else 1 (test doubles that count
+    their calls, for instance)."""
+    return settings.model_frames if getattr(estimator, "concurrent", False) else 1
+
+
 def detect(estimator, frame, detect_every: int) -> Poses | None:
     """The people in one decoded frame, or None on frames the stride skips; raises on a frame the
     decoder flagged as damaged. Independent of other frames, so frames may be detected in parallel.
@@ -406,10 +413,10 @@ def _run(source, info, out_dir, staging, video_final, pkg_final, signer, setting
             open(pkg_dir / package.FRAMES, "wb") as frames_out:
         finisher = _FrameFinisher(settings, plate, obscurer, lookback, monitor, stats, encoder.submit,
                                   skel, qual, frames_out, progress, info.frames)
-        # Detection may run on several frames at once (only the bundled estimator is known to be
-        # safe to share between threads); tracking stays here, in frame order. Rendering, the
-        # look-back, rows and quality run in one thread behind, overlapping the next inferences.
-        workers = settings.model_frames if isinstance(estimator, PoseEstimator) else 1
+        # Detection may run on several frames at once; tracking stays here, in frame order.
+        # Rendering, the look-back, rows and quality run in one thread behind, overlapping the
+        # next inferences.
+        workers = inference_workers(settings, estimator)
         with WriteBehind(finisher.finish, depth=2) as finishing:
             frames = read_ahead(reader.frames(), depth=4)
             detected = map_ahead(lambda f: detect(estimator, f, settings.detect_every), frames, workers)

@@ -173,6 +173,10 @@ def decode(output: np.ndarray, lb: Letterbox, settings: PoseSettings) -> Poses:
 class PoseEstimator:
     """One model session; `estimate(image)` finds every person in an RGB image."""
 
+    #: estimate() may run in several threads at once (onnxruntime sessions allow concurrent runs
+    #: and this class keeps no per-call state), so the pipeline may infer frames side by side.
+    concurrent = True
+
     def __init__(self, session, settings: PoseSettings = PoseSettings(), static_input: tuple[int, int] | None = None):
         self.session = session
         self.settings = settings

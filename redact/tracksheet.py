@@ -25,7 +25,7 @@ from pathlib import Path
 import numpy as np
 
 from redact.errors import OutputError
-from redact.pipeline import ProcessSettings, detect, tracker_config_for
+from redact.pipeline import ProcessSettings, detect, inference_workers, tracker_config_for
 from redact.plan import PLAN_VERSION, ids_fingerprint
 from redact.pose import PoseEstimator
 from redact.stages import map_ahead
@@ -125,7 +125,7 @@ def _track_pass(source: Path, settings: ProcessSettings, estimator, fps: float):
     tracker = Tracker(tracker_config_for(settings, fps))
     seen: dict[int, _Seen] = {}
     every = settings.detect_every
-    workers = settings.model_frames if isinstance(estimator, PoseEstimator) else 1  # as the pipeline
+    workers = inference_workers(settings, estimator)  # as the pipeline
     with VideoReader(source, threads=0) as reader:
         n = 0
         for frame, poses, failed in map_ahead(lambda f: detect(estimator, f, every), reader.frames(), workers):

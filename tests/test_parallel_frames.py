@@ -15,7 +15,7 @@ import numpy as np
 import pytest
 
 import redact.models
-from redact.pipeline import ProcessSettings, process_video
+from redact.pipeline import ProcessSettings, inference_workers, process_video
 from redact.pose import PoseEstimator, PoseSettings
 from redact.rows import read_rows
 from redact.signing import Signer
@@ -74,8 +74,10 @@ def test_a_fault_on_a_frame_inferred_in_parallel_obscures_exactly_that_frame(cli
     monkeypatch.setattr(redact.models, "default_threads", lambda: 2)
     settings = ProcessSettings()
     assert settings.model_frames == 2
-    result = process_video(clip, tmp_path / "out", Signer.from_seed(SEED), settings,
-                           estimator=_FaultyOnFrames(clip, FAULTS))
+    estimator = _FaultyOnFrames(clip, FAULTS)
+    assert inference_workers(settings, estimator) == 2  # a PoseEstimator may be shared between threads
+    assert inference_workers(settings, object()) == 1   # an estimator that does not say so is not
+    result = process_video(clip, tmp_path / "out", Signer.from_seed(SEED), settings, estimator=estimator)
     assert set(result.fault_frames) == FAULTS
     with av.open(str(result.video)) as c:
         out = [f.to_ndarray(format="rgb24") for f in c.decode(video=0)]
