@@ -224,20 +224,16 @@ class _Lookback:
         self.seen: set[int] = set()
 
     def push(self, index: int, pts: int, image: np.ndarray, tracks: Tracks | None, stats: "_Stats",
-             all_ids: Iterable[int] = ()):
+             frame_ids: Iterable[int]):
         """Add one rendered frame; returns the frames now old enough to encode, oldest first.
 
-        tracks: the people obscured in this frame; all_ids: every track id of the frame, including
+        tracks: the people obscured in this frame; frame_ids: every track id of the frame, including
         people kept visible (they are not new when they later have to be obscured)."""
         from redact.regions import person_region
 
-        if tracks is not None and len(tracks):
-            new = [k for k, i in enumerate(tracks.ids.tolist()) if i not in self.seen]
-        else:
-            new = []
-        self.seen.update(int(i) for i in all_ids)
+        new = [k for k, i in enumerate(tracks.ids.tolist()) if i not in self.seen] if tracks is not None else []
+        self.seen.update(int(i) for i in frame_ids)
         if new:
-            self.seen.update(tracks.ids.tolist())
             stats.new_tracks += len(new)
             for k in new:
                 region = person_region(tracks.boxes[k], tracks.keypoints[k], self.margin, image.shape,
@@ -302,8 +298,8 @@ class _FrameFinisher:
             self.stats.fault(frame.index, error or "unknown")
         status = rows.STATUS_OK if tracks is not None else rows.STATUS_FAULT
         pts = frame.pts if frame.pts is not None else frame.index
-        all_ids = tracks.ids.tolist() if tracks is not None else ()
-        for _, ready_pts, ready in self.lookback.push(frame.index, pts, out, hidden, self.stats, all_ids):
+        frame_ids = tracks.ids.tolist() if tracks is not None else ()
+        for _, ready_pts, ready in self.lookback.push(frame.index, pts, out, hidden, self.stats, frame_ids):
             self.encode(ready, ready_pts)
         self.skel.write(rows.encode_row(frame.index, frame.pts, frame.t, tracks or Tracks.empty(), status))
         self.qual.write(encode_quality_line(self.monitor.observe(frame.index, frame.t, frame.image, tracks,
