@@ -13,8 +13,8 @@ import time
 
 import numpy as np
 
-from redact.models import list_models, open_session
-from redact.pose import PoseEstimator, PoseSettings, decode
+from redact.vision.models import list_models, open_session
+from redact.vision.pose import PoseEstimator, PoseSettings, decode
 
 # (label, source width, source height, long side): 16:9 video at three sizes, and a square input.
 CASES = [("720p @ 640x384", 1280, 720, 640), ("720p @ 480x288", 1280, 720, 480),

@@ -29,13 +29,13 @@ from pathlib import Path
 
 import numpy as np
 
-from redact import synthetic as syn
+from redact.media import synthetic as syn
+from redact.media.stages import map_ahead
+from redact.media.video import VideoReader, VideoWriter
 from redact.pipeline import ProcessSettings, process_video
-from redact.models import DEFAULT_POSE_MODEL, FLOAT_POSE_MODEL
-from redact.pose import PoseEstimator, PoseSettings
-from redact.signing import Signer
-from redact.stages import map_ahead
-from redact.video import VideoReader, VideoWriter
+from redact.provenance.signing import Signer
+from redact.vision.models import DEFAULT_POSE_MODEL, FLOAT_POSE_MODEL
+from redact.vision.pose import PoseEstimator, PoseSettings
 
 
 def scene(width: int, height: int, seconds: float) -> syn.SceneSpec:
@@ -127,8 +127,8 @@ MEMORY_CHILD = """
 import json, sys
 from pathlib import Path
 from redact.pipeline import ProcessSettings, process_video
-from redact.pose import PoseSettings
-from redact.signing import Signer
+from redact.vision.pose import PoseSettings
+from redact.provenance.signing import Signer
 clip, out, stride = sys.argv[1], sys.argv[2], int(sys.argv[3])
 s = ProcessSettings(pose=PoseSettings(input_long_side=320), detect_every=stride)
 r = process_video(clip, out, Signer.from_seed(bytes(32)), s)

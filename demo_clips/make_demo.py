@@ -16,7 +16,7 @@ import sys
 from fractions import Fraction
 from pathlib import Path
 
-from redact import synthetic as syn
+from redact.media import synthetic as syn
 
 W, H, FPS, SECONDS = 1280, 720, Fraction(25), 12.0
 

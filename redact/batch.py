@@ -55,9 +55,9 @@ from typing import Callable, Iterable
 from redact import __version__, jsonio
 from redact.errors import InputError, OutputError, RedactError, SigningKeyError
 from redact.hashing import sha256_file
-from redact.log import utc_now
 from redact.pipeline import PACKAGE_NAME, ProcessSettings, process_video
-from redact.signing import Signer, load_private_key_bytes
+from redact.provenance.log import utc_now
+from redact.provenance.signing import Signer, load_private_key_bytes
 
 # Container extensions looked for (lower case; matching ignores case). Common practice: the
 # containers FFmpeg demuxes that surveillance exports and cameras commonly write.
@@ -122,7 +122,7 @@ class BatchKey:
     @classmethod
     def load(cls, path: str | Path, passphrase: bytes) -> "BatchKey":
         """Read the key file and check the passphrase opens it (so a wrong one fails before any work)."""
-        from redact.signing import load_private_key
+        from redact.provenance.signing import load_private_key
 
         signer = load_private_key(Path(path), passphrase)
         return cls(Path(path).read_bytes(), signer.key_id, bytes(passphrase))
@@ -243,7 +243,7 @@ _WORKER: dict = {}
 
 def _init_worker(key: BatchKey, settings: ProcessSettings) -> None:
     """Process-pool initialiser: decrypt the key and load the model once per worker process."""
-    from redact.pose import PoseEstimator
+    from redact.vision.pose import PoseEstimator
 
     _WORKER["signer"] = key.signer()
     _WORKER["estimator"] = PoseEstimator.default(settings.pose, settings.model_threads)
@@ -261,7 +261,7 @@ _CLUSTER_CACHE: dict = {}
 
 
 def _cpu_count() -> int:
-    from redact.models import default_threads
+    from redact.vision.models import default_threads
 
     return default_threads()
 
@@ -281,7 +281,7 @@ def cluster_task(job: _Job, settings: ProcessSettings, key: BatchKey, threads_by
         with _CLUSTER_LOCK:
             cache_key = (key.key_id, settings.pose, threads)
             if cache_key not in _CLUSTER_CACHE:
-                from redact.pose import PoseEstimator
+                from redact.vision.pose import PoseEstimator
 
                 _CLUSTER_CACHE[cache_key] = (key.signer(), PoseEstimator.default(settings.pose, threads))
             signer, estimator = _CLUSTER_CACHE[cache_key]
@@ -303,7 +303,8 @@ def _threads_by_worker(client) -> dict[str, int]:
 def _run_cluster(address: str, jobs: list[_Job], settings: ProcessSettings, key: BatchKey,
                  done: Callable[[_Job, dict], None]) -> None:
     try:
-        from dask.distributed import Client, as_completed as dask_completed
+        from dask.distributed import Client
+        from dask.distributed import as_completed as dask_completed
     except ImportError:
         raise InputError("--scheduler needs Dask: install the optional extra with `pip install 'redact[cluster]'`") from None
     try:
@@ -467,7 +468,7 @@ def _batch(input_dir, out_dir, videos, key, settings, workers, scheduler, progre
 
 
 def _run_here(jobs: list[_Job], settings: ProcessSettings, key, done) -> None:
-    from redact.pose import PoseEstimator
+    from redact.vision.pose import PoseEstimator
 
     signer = key.signer() if isinstance(key, BatchKey) else key
     estimator = PoseEstimator.default(settings.pose, settings.model_threads)  # the model is loaded once

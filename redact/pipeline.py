@@ -21,15 +21,17 @@ from typing import Callable, Iterable
 
 import numpy as np
 
-from redact import __version__, package, rows
+from redact import __version__
 from redact.errors import InputError, OutputError, RedactError
-from redact.log import TransformLog, utc_now
-from redact.pose import PoseEstimator, PoseSettings
-from redact.quality import QualityMonitor, ReviewRange, ReviewRules, encode_quality_line, review_document
-from redact.records import Poses, Tracks
-from redact.render import RenderSettings, obscure_all, obscurer_for, render_frame
-from redact.stages import WriteBehind, map_ahead, read_ahead
-from redact.track import Tracker, TrackerConfig
+from redact.media.stages import WriteBehind, map_ahead, read_ahead
+from redact.provenance import package
+from redact.provenance.log import TransformLog, utc_now
+from redact.redaction.quality import QualityMonitor, ReviewRange, ReviewRules, encode_quality_line, review_document
+from redact.redaction.render import RenderSettings, obscure_all, obscurer_for, render_frame
+from redact.skeletons import rows
+from redact.vision.pose import PoseEstimator, PoseSettings
+from redact.vision.records import Poses, Tracks
+from redact.vision.track import Tracker, TrackerConfig
 
 VIDEO_NAME = "redacted.mp4"
 #: Upper bound of frames inferred at once (common practice: beyond a few, ordering and memory cost more than they gain).
@@ -79,7 +81,7 @@ class ProcessSettings:
         """onnxruntime intra-op threads of each model run: `threads` when given; with a detection
         stride every core but one (decoding, drawing and encoding dominate there and need a core of
         their own); else the cores divided among the frames inferred at once (model_frames)."""
-        from redact.models import default_threads
+        from redact.vision.models import default_threads
 
         if self.threads:
             return self.threads
@@ -93,7 +95,7 @@ class ProcessSettings:
         """How many frames the model works on at once: with every frame detected and `threads` not
         given, one per core up to MAX_MODEL_FRAMES (on few cores, whole frames side by side keep the
         cores busier than one frame's operators split over threads: benchmarks/README.md); else 1."""
-        from redact.models import default_threads
+        from redact.vision.models import default_threads
 
         if self.threads or self.detect_every > 1:
             return 1
@@ -229,7 +231,7 @@ class _Lookback:
 
         tracks: the people obscured in this frame; frame_ids: every track id of the frame, including
         people kept visible (they are not new when they later have to be obscured)."""
-        from redact.regions import person_region
+        from redact.redaction.regions import person_region
 
         new = [k for k, i in enumerate(tracks.ids.tolist()) if i not in self.seen] if tracks is not None else []
         self.seen.update(int(i) for i in frame_ids)
@@ -310,10 +312,10 @@ class _FrameFinisher:
 
 
 def _build_plate(source: Path, estimator: PoseEstimator, settings: ProcessSettings):
-    """A background plate from a first pass: sampled frames, people masked out (see redact.plate)."""
-    from redact.plate import PlateBuilder
-    from redact.regions import people_mask
-    from redact.video import VideoReader
+    """A background plate from a first pass: sampled frames, people masked out (see redact.redaction.plate)."""
+    from redact.media.video import VideoReader
+    from redact.redaction.plate import PlateBuilder
+    from redact.redaction.regions import people_mask
 
     builder = PlateBuilder(max_samples=settings.plate_samples)
     with VideoReader(source, hash_file=False) as reader:
@@ -337,17 +339,17 @@ def process_video(source: str | Path, out_dir: str | Path, signer, settings: Pro
                   plan: str | Path | None = None) -> ProcessResult:
     """Redact every person in `source` and write the signed skeleton package; see the module doc.
 
-    signer: a redact.signing.Signer. disclosure: optional recipient/organisation/purpose/date/
-    request_reference. privacy: optional redact.privacy.PrivacyOptions applied to the skeleton
+    signer: a redact.provenance.signing.Signer. disclosure: optional recipient/organisation/purpose/date/
+    request_reference. privacy: optional redact.skeletons.privacy.PrivacyOptions applied to the skeleton
     rows. progress(frames_done, frames_expected) is called after each frame. estimator: a
     PoseEstimator to use instead of the bundled default (tests inject faults this way).
     audit: scan the redacted video (and the source) with the independent detectors of
-    redact.audit before signing, and record the result in the log and the statement.
+    redact.redaction.audit before signing, and record the result in the log and the statement.
     plan: a redaction plan file (docs/plan-format.md): people to leave visible, extra regions and
     frames to obscure; validated before any output, its hash and every entry applied are logged.
     """
-    from redact.models import get_model
-    from redact.video import probe
+    from redact.media.video import probe
+    from redact.vision.models import get_model
 
     started = time.perf_counter()
     source, out_dir = Path(source), Path(out_dir)
@@ -356,7 +358,7 @@ def process_video(source: str | Path, out_dir: str | Path, signer, settings: Pro
     entry = get_model(settings.pose.model, task="pose")
     plan_obj = None
     if plan is not None:
-        from redact.plan import load_plan
+        from redact.redaction.plan import load_plan
 
         plan_obj = load_plan(plan, info)
         plan_obj.check_settings(settings, entry.sha256)
@@ -381,7 +383,7 @@ def process_video(source: str | Path, out_dir: str | Path, signer, settings: Pro
 def _run(source, info, out_dir, staging, video_final, pkg_final, signer, settings, tracker_cfg, estimator,
          entry, obscurer, plate, disclosure, privacy, progress, started, audit, plan):
     """The streaming pass and the packaging, inside the staging folder (see process_video)."""
-    from redact.video import VideoReader, VideoWriter, copy_audio
+    from redact.media.video import VideoReader, VideoWriter, copy_audio
 
     pkg_dir = staging / PACKAGE_NAME
     pkg_dir.mkdir()
@@ -462,7 +464,7 @@ def _run(source, info, out_dir, staging, video_final, pkg_final, signer, setting
                container_metadata="not copied", source_metadata_keys=list(info.metadata_keys))
     audit_result = None
     if audit:
-        from redact.audit import AuditSettings, audit_summary, audit_video
+        from redact.redaction.audit import AuditSettings, audit_summary, audit_video
 
         audit_result = audit_summary(audit_video(video_tmp, source, AuditSettings(threads=settings.threads)))
         log.append("audit", **audit_result)
@@ -503,8 +505,8 @@ def _tracks_json(summaries) -> bytes:
 
 
 def _apply_privacy(pkg_dir: Path, privacy, info, log: TransformLog) -> None:
-    """Rewrite skeletons.jsonl and tracks.json through the de-identification options (redact.privacy)."""
-    from redact.derive import rewrite_skeleton_files
+    """Rewrite skeletons.jsonl and tracks.json through the de-identification options (redact.skeletons.privacy)."""
+    from redact.skeletons.derive import rewrite_skeleton_files
 
     summary = rewrite_skeleton_files(pkg_dir, privacy, (info.width, info.height), float(info.fps))
     log.append("privacy", **privacy.to_record(), summary=summary)

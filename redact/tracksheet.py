@@ -4,7 +4,7 @@
 (PoseEstimator.default(settings.pose, settings.model_threads), as many frames at once,
 Tracker(tracker_config_for(settings, fps)), failed frames skipped the same way), so its track ids are the ids a run
 with the same settings assigns. The operator finds the requester's id(s) on the sheet and writes
-them into a redaction plan (redact.plan); the sheet's plan-template.json carries the source hash
+them into a redaction plan (redact.redaction.plan); the sheet's plan-template.json carries the source hash
 and settings fingerprint the plan needs.
 
 The sheet shows unredacted people: it is SENSITIVE, stays under the operator's control, is never
@@ -25,10 +25,10 @@ from pathlib import Path
 import numpy as np
 
 from redact.errors import OutputError
+from redact.media.stages import map_ahead
 from redact.pipeline import ProcessSettings, detect, inference_workers, tracker_config_for
-from redact.plan import PLAN_VERSION, ids_fingerprint
-from redact.pose import PoseEstimator
-from redact.stages import map_ahead
+from redact.redaction.plan import PLAN_VERSION, ids_fingerprint
+from redact.vision.pose import PoseEstimator
 
 TRACKS_NAME = "tracks.json"
 README_NAME = "README.txt"
@@ -119,8 +119,8 @@ def _track_pass(source: Path, settings: ProcessSettings, estimator, fps: float):
 
     Returns (tracker summaries, {id: _Seen}, frames decoded, source sha256, stopped_early).
     """
-    from redact.track import Tracker
-    from redact.video import VideoReader
+    from redact.media.video import VideoReader
+    from redact.vision.track import Tracker
 
     tracker = Tracker(tracker_config_for(settings, fps))
     seen: dict[int, _Seen] = {}
@@ -146,7 +146,7 @@ def _track_pass(source: Path, settings: ProcessSettings, estimator, fps: float):
 
 def _crop_pass(source: Path, wanted: dict[int, list[tuple[int, np.ndarray]]]) -> dict[int, list[np.ndarray]]:
     """Second pass: decode again and cut the crops; wanted maps frame index → [(track id, box)]."""
-    from redact.video import VideoReader
+    from redact.media.video import VideoReader
 
     crops: dict[int, list[np.ndarray]] = {}
     with VideoReader(source, threads=0, hash_file=False) as reader:
@@ -165,8 +165,8 @@ def make_track_sheet(source: str | Path, out_dir: str | Path, settings: ProcessS
     to use instead of the bundled default (tests). Refuses an existing out_dir; writes into a
     hidden temporary folder beside it and renames it into place at the end.
     """
-    from redact.models import get_model
-    from redact.video import probe
+    from redact.media.video import probe
+    from redact.vision.models import get_model
 
     source, out_dir = Path(source), Path(out_dir)
     info = probe(source)

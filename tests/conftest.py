@@ -15,7 +15,7 @@ from pathlib import Path
 import pytest
 from click.testing import CliRunner
 
-from redact import synthetic as syn
+from redact.media import synthetic as syn
 
 
 @dataclass(frozen=True)
@@ -93,13 +93,13 @@ class ScriptedEstimator:
     detected): `misses` find nobody (the tracker must coast), `faults` raise (fail closed)."""
 
     def __init__(self, misses=(), faults=(), settings=None):
-        from redact.pose import PoseEstimator, PoseSettings
+        from redact.vision.pose import PoseEstimator, PoseSettings
 
         self.inner = PoseEstimator.default(settings or PoseSettings())
         self.misses, self.faults, self.calls = set(misses), set(faults), 0
 
     def estimate(self, image):
-        from redact.records import Poses
+        from redact.vision.records import Poses
 
         i = self.calls
         self.calls += 1

@@ -1,8 +1,8 @@
-"""`redact audit` (redact.audit): faces and persons still detectable in a redacted video.
+"""`redact audit` (redact.redaction.audit): faces and persons still detectable in a redacted video.
 
 People in the clips come from scikit-image's stills loaded from the installed package
 (`astronaut()`: public domain, NASA; `camera()`: CC0, Lav Varshney), pasted by
-redact.synthetic at known rectangles: the paste rectangles are the ground truth.
+redact.media.synthetic at known rectangles: the paste rectangles are the ground truth.
 Outside references: OpenCV's `cv2.dnn.NMSBoxes` for greedy suppression, pycocotools'
 `maskUtils.iou` for box IoU. The pipeline runs once (module-scoped fixtures).
 """
@@ -20,10 +20,10 @@ import skimage.data
 from click.testing import CliRunner
 from conftest import crossing_spec, make_clip
 
-from redact import audit as A
 from redact.cli import main
 from redact.errors import InputError
-from redact.video import VideoReader, VideoWriter
+from redact.media.video import VideoReader, VideoWriter
+from redact.redaction import audit as A
 
 STEP = 5  # CLI runs scan every 5th frame of the 25-frame clip: 5 frames, keeps the module fast
 
@@ -46,7 +46,7 @@ def clip(work):
 def redacted(work, clip) -> Path:
     """The tool's own redacted output (default style: stick figures on grey) of the clip."""
     from redact.pipeline import process_video
-    from redact.signing import Signer
+    from redact.provenance.signing import Signer
 
     result = process_video(clip.path, work / "out", Signer.from_seed(bytes(32)))
     return result.video
@@ -89,13 +89,13 @@ def run_cli(*args):
 # ---------------------------------------------------------------- geometry and rules
 
 def test_fill_grey_is_the_renderers():
-    from redact.render import FILL_GREY
+    from redact.redaction.render import FILL_GREY
 
     assert A.FILL_GREY == FILL_GREY
 
 
 def test_default_face_model_is_full_range():
-    from redact.models import get_model
+    from redact.vision.models import get_model
 
     assert get_model(task="face-detection").id == "face-detector-full-range"
     assert get_model(task="pose").id == "yolo11n-pose-int8"  # processing; the audit keeps float32

@@ -17,19 +17,18 @@ from pathlib import Path
 
 import pytest
 from click.testing import CliRunner
+from conftest import crossing_spec, make_clip
 
 import redact.batch as batch
-from redact.batch import (STATUS_DONE, STATUS_FAILED, STATUS_SKIPPED, BatchKey, find_videos, output_name,
-                          run_batch)
+from redact.batch import STATUS_DONE, STATUS_FAILED, STATUS_SKIPPED, BatchKey, find_videos, output_name, run_batch
 from redact.cli import main
 from redact.errors import InputError, SigningKeyError
+from redact.media import synthetic as syn
 from redact.pipeline import ProcessSettings
-from redact.pose import PoseSettings
-from redact.rows import read_rows
-from redact.signing import generate_key, load_public_key
-from redact.verify import verify_package
-from redact import synthetic as syn
-from conftest import crossing_spec, make_clip
+from redact.provenance.signing import generate_key, load_public_key
+from redact.provenance.verify import verify_package
+from redact.skeletons.rows import read_rows
+from redact.vision.pose import PoseSettings
 
 PASSPHRASE = "batch test passphrase"  # a throw-away key made for these tests
 # Files that must be byte-identical however the work was spread (the signed envelope and the log

@@ -5,11 +5,10 @@ import shutil
 
 import pytest
 from click.testing import CliRunner
-
-from redact import merkle, signing
-from redact.cli import main
-
 from test_package import N_FRAMES, SEED, build_package
+
+from redact.cli import main
+from redact.provenance import merkle, signing
 
 
 @pytest.fixture(scope="module")

@@ -1,13 +1,13 @@
-"""Matching costs: IoU against hand-computed values and pycocotools, OKS against redact.skeleton.oks."""
+"""Matching costs: IoU against hand-computed values and pycocotools, OKS against redact.vision.skeleton.oks."""
 
 from __future__ import annotations
 
 import numpy as np
 import pytest
 
-from redact.costs import COST_NAMES, box_areas, iou_matrix, make_cost
 from redact.errors import InputError
-from redact.skeleton import NUM_KEYPOINTS, oks
+from redact.vision.costs import COST_NAMES, box_areas, iou_matrix, make_cost
+from redact.vision.skeleton import NUM_KEYPOINTS, oks
 
 
 def _pose(cx: float, cy: float, scale: float = 40.0, conf: float = 0.9) -> np.ndarray:
@@ -76,7 +76,7 @@ def test_cost_shape_dtype_range(name, n, m):
 
 
 def test_oks_cost_agrees_with_single_pair_oks():
-    # redact.skeleton.oks follows pycocotools' cocoeval formula; the matrix cost must agree with it.
+    # redact.vision.skeleton.oks follows pycocotools' cocoeval formula; the matrix cost must agree with it.
     truth = _pose(100, 100)
     near = truth.copy()
     near[:, :2] += [3.0, -2.0]

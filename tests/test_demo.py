@@ -8,7 +8,7 @@ from click.testing import CliRunner
 
 from redact.cli import main
 from redact.cli.cmd_process import demo_clip
-from redact.video import probe
+from redact.media.video import probe
 
 
 def test_shipped_demo_clip_meets_its_description():

@@ -1,4 +1,4 @@
-"""Derived packages (redact.derive, `redact derive`) and export from verified / .tar packages.
+"""Derived packages (redact.skeletons.derive, `redact derive`) and export from verified / .tar packages.
 
 The parent is made once by the real pipeline on the crossing clip (scikit-image stills:
 astronaut() public domain NASA, camera() CC0 Lav Varshney; see tests/conftest.py).
@@ -24,16 +24,16 @@ import numpy as np
 import pytest
 from click.testing import CliRunner
 
-from redact import derive as dv
 from redact.errors import InputError, OutputError, VerificationFailed
-from redact.export import export_package
 from redact.pipeline import ProcessSettings, process_video
-from redact.privacy import PrivacyOptions
-from redact.quality import FrameQuality, ReviewRange, ReviewRules, encode_quality_line, review_document
-from redact.records import Tracks
-from redact.rows import encode_row
-from redact.signing import Signer, generate_key
-from redact.verify import verify_package
+from redact.provenance.signing import Signer, generate_key
+from redact.provenance.verify import verify_package
+from redact.redaction.quality import FrameQuality, ReviewRange, ReviewRules, encode_quality_line, review_document
+from redact.skeletons import derive as dv
+from redact.skeletons.export import export_package
+from redact.skeletons.privacy import PrivacyOptions
+from redact.skeletons.rows import encode_row
+from redact.vision.records import Tracks
 
 # As published in the COCO keypoint format (cocodataset.org), typed here independently.
 COCO_HEAD = ["nose", "left_eye", "right_eye", "left_ear", "right_ear"]

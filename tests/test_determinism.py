@@ -13,12 +13,12 @@ import hashlib
 import json
 
 import pytest
+from conftest import crossing_spec, make_clip
 
 from redact.pipeline import ProcessSettings, process_video
-from redact.rows import read_rows
-from redact.signing import Signer
-from redact.verify import verify_package
-from conftest import crossing_spec, make_clip
+from redact.provenance.signing import Signer
+from redact.provenance.verify import verify_package
+from redact.skeletons.rows import read_rows
 
 SEED = bytes(range(32))  # a fixed test key (RFC 8032 keys are any 32 bytes)
 SAME_BYTES = ("skeletons.jsonl", "tracks.json", "quality.jsonl", "review.json", "frames.sha256")

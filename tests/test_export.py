@@ -1,4 +1,4 @@
-"""Research export (redact.export, `redact export`) of hand-built skeleton packages.
+"""Research export (redact.skeletons.export, `redact export`) of hand-built skeleton packages.
 
 Outside references: numpy.load (PyPI `numpy`) reads the .npz; pycocotools (PyPI `pycocotools`)
 COCO + loadRes reads the COCO keypoint results against the ground-truth file, and COCOeval scores
@@ -14,13 +14,13 @@ import numpy as np
 import pytest
 from click.testing import CliRunner
 
-from redact import privacy as pv
 from redact.errors import InputError, OutputError, PackageError
-from redact.export import default_gt_path, export_package
-from redact.records import Tracks
-from redact.rows import encode_row, read_rows
+from redact.skeletons import privacy as pv
+from redact.skeletons.export import default_gt_path, export_package
+from redact.skeletons.rows import encode_row, read_rows
+from redact.vision.records import Tracks
 
-# As published (cocodataset.org keypoint format), typed here independently of redact.skeleton.
+# As published (cocodataset.org keypoint format), typed here independently of redact.vision.skeleton.
 COCO_NAMES = ["nose", "left_eye", "right_eye", "left_ear", "right_ear", "left_shoulder", "right_shoulder",
               "left_elbow", "right_elbow", "left_wrist", "right_wrist", "left_hip", "right_hip",
               "left_knee", "right_knee", "left_ankle", "right_ankle"]

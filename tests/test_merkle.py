@@ -3,10 +3,11 @@
 import hashlib
 
 import pytest
-from hypothesis import given, settings, strategies as st
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
-from redact import merkle
 from redact.errors import InputError, PackageError
+from redact.provenance import merkle
 
 # Leaves of the certificate-transparency reference tests (transparency-dev/merkle testonly/constants.go).
 LEAVES = [bytes.fromhex(h) for h in ["", "00", "10", "2021", "3031", "40414243", "5051525354555657",

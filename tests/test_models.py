@@ -10,7 +10,7 @@ from click.testing import CliRunner
 
 from redact.cli import main
 from redact.errors import ModelError
-from redact.models import MODELS_DIR, check_model, get_model, list_models, open_session
+from redact.vision.models import MODELS_DIR, check_model, get_model, list_models, open_session
 
 REPO = Path(__file__).resolve().parent.parent
 

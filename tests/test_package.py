@@ -15,11 +15,12 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from redact import jsonio, merkle, package, signing
+from redact import jsonio
 from redact.errors import OutputError, PackageError
-from redact.log import TransformLog
-from redact.records import Tracks
-from redact.rows import encode_row
+from redact.provenance import merkle, package, signing
+from redact.provenance.log import TransformLog
+from redact.skeletons.rows import encode_row
+from redact.vision.records import Tracks
 
 SEED = bytes(range(32))  # a fixed test key (not a published vector; any 32 bytes are a valid seed)
 N_FRAMES = 6

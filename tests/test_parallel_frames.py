@@ -14,12 +14,12 @@ import av
 import numpy as np
 import pytest
 
-import redact.models
+import redact.vision.models
+from redact.media.video import VideoReader
 from redact.pipeline import ProcessSettings, inference_workers, process_video
-from redact.pose import PoseEstimator, PoseSettings
-from redact.rows import read_rows
-from redact.signing import Signer
-from redact.video import VideoReader
+from redact.provenance.signing import Signer
+from redact.skeletons.rows import read_rows
+from redact.vision.pose import PoseEstimator, PoseSettings
 
 SEED = bytes(range(32))
 SAME_BYTES = ("skeletons.jsonl", "tracks.json", "quality.jsonl", "review.json", "frames.sha256")
@@ -36,7 +36,7 @@ def clip(crossing_clip):
 
 
 def test_two_frames_at_once_write_the_same_bytes_as_one_at_a_time(clip, tmp_path, monkeypatch):
-    monkeypatch.setattr(redact.models, "default_threads", lambda: 2)
+    monkeypatch.setattr(redact.vision.models, "default_threads", lambda: 2)
     parallel, serial = ProcessSettings(), ProcessSettings(threads=1)
     assert (parallel.model_frames, parallel.model_threads) == (2, 1)
     assert (serial.model_frames, serial.model_threads) == (1, 1)
@@ -71,7 +71,7 @@ class _FaultyOnFrames(PoseEstimator):
 
 
 def test_a_fault_on_a_frame_inferred_in_parallel_obscures_exactly_that_frame(clip, tmp_path, monkeypatch):
-    monkeypatch.setattr(redact.models, "default_threads", lambda: 2)
+    monkeypatch.setattr(redact.vision.models, "default_threads", lambda: 2)
     settings = ProcessSettings()
     assert settings.model_frames == 2
     estimator = _FaultyOnFrames(clip, FAULTS)

@@ -25,11 +25,19 @@ from click.testing import CliRunner
 
 from redact.errors import PlanError, RedactError
 from redact.pipeline import ProcessSettings
-from redact.plan import (DEFAULT_OVERLAP_IOU, PLAN_SIZE_LIMIT, PLAN_VERSION, format_ids, ids_fingerprint, load_plan,
-                         parse_plan, polygon_mask)
-from redact.pose import PoseSettings
-from redact.records import Tracks
-from redact.render import RenderSettings
+from redact.redaction.plan import (
+    DEFAULT_OVERLAP_IOU,
+    PLAN_SIZE_LIMIT,
+    PLAN_VERSION,
+    format_ids,
+    ids_fingerprint,
+    load_plan,
+    parse_plan,
+    polygon_mask,
+)
+from redact.redaction.render import RenderSettings
+from redact.vision.pose import PoseSettings
+from redact.vision.records import Tracks
 
 W, H = 320, 240
 # A 2 s clip at 25 fps, as probe() reports it (the crossing clip of tests/conftest.py).
@@ -316,14 +324,14 @@ def _iou(a, b) -> float:
 
 def _others_masks(rows, keep_id: int | None, shape) -> dict[int, np.ndarray]:
     """Per frame, where the run obscured people other than the kept one, recomputed from its own
-    rows: each other track's region (redact.regions.person_region, margin from its frames since
+    rows: each other track's region (redact.redaction.regions.person_region, margin from its frames since
     the last observation by TrackerConfig.margin_after), and for a new track its first region at
     the widest margin over the look-back frames before it (redact.pipeline's look-back).
     Dilated by 3 px for codec bleed. Used only to choose which pixels to compare; keep_id None
     gives everyone's regions."""
     from redact.pipeline import ProcessSettings
-    from redact.regions import RegionSettings, person_region
-    from redact.track import TrackerConfig
+    from redact.redaction.regions import RegionSettings, person_region
+    from redact.vision.track import TrackerConfig
 
     cfg, rs = TrackerConfig(), RegionSettings()
     back = int(round(ProcessSettings().lookback_seconds * 25)) + 1
@@ -369,8 +377,8 @@ def _grey(img, x, y) -> float:
 
 def _write_plan(clip, sheet_dir: Path) -> tuple[Path, int, list[dict]]:
     """A track sheet and a plan keeping the astronaut visible, as an operator would write them."""
-    from redact.models import get_model
     from redact.tracksheet import make_track_sheet
+    from redact.vision.models import get_model
 
     sheet = make_track_sheet(clip.path, sheet_dir / "sheet")
     template = json.loads((sheet_dir / "sheet" / "plan-template.json").read_text())
@@ -398,7 +406,7 @@ def _write_plan(clip, sheet_dir: Path) -> tuple[Path, int, list[dict]]:
 def planned(crossing_clip, tmp_path_factory):
     """The crossing clip processed with a plan that keeps the astronaut visible (wired by the pipeline)."""
     from redact.pipeline import process_video
-    from redact.signing import Signer
+    from redact.provenance.signing import Signer
 
     d = tmp_path_factory.mktemp("planned")
     plan_path, keep_id, _ = _write_plan(crossing_clip, d)
@@ -409,7 +417,7 @@ def planned(crossing_clip, tmp_path_factory):
 def test_end_to_end_keep_one_person_visible(planned):
     from skimage.metrics import structural_similarity
 
-    from redact.rows import read_rows
+    from redact.skeletons.rows import read_rows
 
     clip, plan_path, keep_id, result = planned
     src, out = _decode(clip.path), _decode(result.video)
@@ -522,7 +530,7 @@ def test_rerun_with_the_same_plan_is_reproducible(planned, tmp_path):
     """Issue 8: the same source, plan, model and settings give byte-identical skeleton rows and the
     same redacted-region log (log entries compared without their time and chain fields)."""
     from redact.pipeline import process_video
-    from redact.signing import Signer
+    from redact.provenance.signing import Signer
 
     clip, plan_path, _, first = planned
     again = process_video(clip.path, tmp_path / "again", Signer.from_seed(SEED), ProcessSettings(), plan=plan_path)
@@ -561,7 +569,7 @@ def test_decisions_and_counters_are_deterministic():
 # ---------------------------------------------------------------- bad plans through the CLI
 
 def _valid_sheet(clip_path: Path) -> dict:
-    from redact.models import get_model
+    from redact.vision.models import get_model
 
     return {"source_sha256": hashlib.sha256(clip_path.read_bytes()).hexdigest(),
             "settings_sha256": ids_fingerprint(ProcessSettings(), get_model().sha256)}

@@ -12,9 +12,9 @@ import pytest
 from skimage import data
 
 from redact.errors import RedactError
-from redact.plate import Plate, PlateBuilder
-from redact.records import Tracks
-from redact.render import FILL_GREY, PlateFill, RenderSettings, render_frame
+from redact.redaction.plate import Plate, PlateBuilder
+from redact.redaction.render import FILL_GREY, PlateFill, RenderSettings, render_frame
+from redact.vision.records import Tracks
 
 H, W = 180, 320
 PERSON = cv2.resize(data.astronaut()[0:300, 100:360], (80, 96), interpolation=cv2.INTER_AREA)  # NASA, PD

@@ -11,7 +11,7 @@ import pytest
 from skimage import data
 
 from redact.errors import InputError
-from redact.pose import PoseEstimator, PoseSettings, input_size_for, nms
+from redact.vision.pose import PoseEstimator, PoseSettings, input_size_for, nms
 
 FIXTURE = Path(__file__).parent / "fixtures" / "pose_reference.json"
 NOSE, L_EYE, R_EYE, L_SHOULDER, R_SHOULDER = 0, 1, 2, 5, 6
@@ -80,7 +80,7 @@ def test_int8_model_stays_close_to_reference_framework(name):
     same weights: same people, OKS >= 0.95 over the reference's confident keypoints (COCO OKS, as in
     pycocotools), median keypoint distance <= 5 px, scores within 0.05. Tolerances are this
     project's (measured OKS 0.987 and 0.999), not a published bound."""
-    from redact.skeleton import oks
+    from redact.vision.skeleton import oks
 
     r, poses = _against_reference("yolo11n-pose-int8", name)
     assert len(poses) == len(r["boxes"]) == 1

@@ -1,8 +1,8 @@
-"""Skeleton de-identification options (redact.privacy) on small hand-built skeleton rows.
+"""Skeleton de-identification options (redact.skeletons.privacy) on small hand-built skeleton rows.
 
 Outside references: the COCO keypoint format and OKS sigmas (cocodataset.org, pycocotools
 cocoeval.py), pycocotools' COCOeval.computeOks (PyPI `pycocotools`), scipy.stats.kstest (PyPI
-`scipy`) for the shape of the noise. Rows are built with redact.rows.encode_row, never through
+`scipy`) for the shape of the noise. Rows are built with redact.skeletons.rows.encode_row, never through
 the video pipeline.
 """
 
@@ -17,11 +17,11 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from redact import privacy as pv
 from redact.errors import InputError
-from redact.records import Tracks
-from redact.rows import decode_row, encode_row, read_rows
-from redact.skeleton import HEAD_KEYPOINTS, SIGMAS, oks
+from redact.skeletons import privacy as pv
+from redact.skeletons.rows import decode_row, encode_row, read_rows
+from redact.vision.records import Tracks
+from redact.vision.skeleton import HEAD_KEYPOINTS, SIGMAS, oks
 
 W, H = 640, 480
 

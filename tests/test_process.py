@@ -14,14 +14,13 @@ import av
 import numpy as np
 import pytest
 from click.testing import CliRunner
+from conftest import ScriptedEstimator
 from skimage.metrics import structural_similarity
 
 from redact.cli import main
 from redact.pipeline import ProcessSettings, process_video
-from redact.rows import read_rows
-from redact.signing import Signer
-
-from conftest import ScriptedEstimator
+from redact.provenance.signing import Signer
+from redact.skeletons.rows import read_rows
 
 SEED = bytes(range(32))
 MISS_FRAMES = set(range(12, 20))   # the detector "misses" everyone here: tracks must coast
@@ -240,7 +239,7 @@ def test_cli_process_with_privacy_options_is_signed_and_applied(crossing_clip, t
 
 
 def test_cli_process_audit_is_recorded_in_the_log(crossing_clip, tmp_path, key):
-    """`process --audit` runs redact.audit (an independent face detector, MediaPipe BlazeFace, and
+    """`process --audit` runs redact.redaction.audit (an independent face detector, MediaPipe BlazeFace, and
     the pose model at a larger size) on its own output and the source, and logs the result."""
     out = tmp_path / "audited"
     r = CliRunner().invoke(main, ["process", str(crossing_clip.path), "--out", str(out), "--key", str(key),

@@ -15,9 +15,18 @@ import pytest
 from skimage import data
 
 from redact.errors import RedactError
-from redact.quality import (FrameQuality, QualityMonitor, ReviewRange, ReviewRules, analysis_grey,
-                            encode_quality_line, luma, review_document, sharpness)
-from redact.records import Tracks
+from redact.redaction.quality import (
+    FrameQuality,
+    QualityMonitor,
+    ReviewRange,
+    ReviewRules,
+    analysis_grey,
+    encode_quality_line,
+    luma,
+    review_document,
+    sharpness,
+)
+from redact.vision.records import Tracks
 
 
 def _bt601(r, g, b):
@@ -172,8 +181,8 @@ def test_short_lived_and_off_screen_coasting_tracks_do_not_flag():
     """min_hits: a track seen once and then coasting is not flagged; a settled one is, while on screen."""
     import numpy as np
 
-    from redact.quality import QualityMonitor, ReviewRules
-    from redact.records import Tracks
+    from redact.redaction.quality import QualityMonitor, ReviewRules
+    from redact.vision.records import Tracks
 
     def tracks(box, hits, observed):
         return Tracks(np.array([1]), np.array([box], np.float32), np.array([0.9]), np.zeros((1, 17, 3)),

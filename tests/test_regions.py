@@ -8,8 +8,8 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from redact.errors import RedactError
-from redact.records import Tracks
-from redact.regions import RegionSettings, people_mask, person_region, track_regions
+from redact.redaction.regions import RegionSettings, people_mask, person_region, track_regions
+from redact.vision.records import Tracks
 
 H, W = 240, 320
 
@@ -104,7 +104,7 @@ def test_paint_covers_exactly_the_mask():
     """The solid-fill fast path paints the same pixels the region's mask marks."""
     import numpy as np
 
-    from redact.regions import person_region
+    from redact.redaction.regions import person_region
 
     kp = np.zeros((17, 3))
     kp[0] = (60, 30, 0.9)

@@ -17,11 +17,19 @@ from skimage import data
 from skimage.metrics import structural_similarity
 
 from redact.errors import RedactError
-from redact.plate import PlateBuilder
-from redact.records import Tracks
-from redact.regions import people_mask
-from redact.render import (FIGURE_GREY, FILL_GREY, STYLES, Blur, RenderSettings, obscure_all, obscurer_for,
-                           render_frame)
+from redact.redaction.plate import PlateBuilder
+from redact.redaction.regions import people_mask
+from redact.redaction.render import (
+    FIGURE_GREY,
+    FILL_GREY,
+    STYLES,
+    Blur,
+    RenderSettings,
+    obscure_all,
+    obscurer_for,
+    render_frame,
+)
+from redact.vision.records import Tracks
 
 H, W = 480, 640
 

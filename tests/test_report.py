@@ -35,10 +35,10 @@ from skimage.metrics import structural_similarity
 
 from redact.cli import main
 from redact.pipeline import ProcessSettings, process_video
-from redact.pose import PoseEstimator, PoseSettings
-from redact.report import build_report, make_report
-from redact.report_plots import thumbnail_jpeg
-from redact.signing import Signer, load_public_key
+from redact.provenance.signing import Signer, load_public_key
+from redact.report.document import build_report, make_report
+from redact.report.plots import thumbnail_jpeg
+from redact.vision.pose import PoseEstimator, PoseSettings
 
 SEED = bytes(range(32))
 OTHER_SEED = bytes(range(1, 33))

@@ -8,8 +8,8 @@ from cryptography.hazmat.primitives import serialization
 from cryptography.hazmat.primitives.asymmetric import ec
 from cryptography.hazmat.primitives.asymmetric.ed25519 import Ed25519PrivateKey
 
-from redact import signing
 from redact.errors import OutputError, SigningKeyError, VerificationFailed
+from redact.provenance import signing
 
 # RFC 8032 §7.1 TEST 1-3: (secret key, public key, message, signature), hex.
 RFC8032 = [

@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from redact.skeleton import KEYPOINT_NAMES, LINKS, LINKS_1BASED, SIGMAS, oks, oks_matrix
+from redact.vision.skeleton import KEYPOINT_NAMES, LINKS, LINKS_1BASED, SIGMAS, oks, oks_matrix
 
 # Source: COCO keypoint format (cocodataset.org), as listed in shared/CHECKS.md.
 COCO_NAMES = ["nose", "left_eye", "right_eye", "left_ear", "right_ear", "left_shoulder", "right_shoulder",

@@ -8,7 +8,7 @@ import numpy as np
 import pytest
 
 from redact.errors import InputError
-from redact.smoothing import OneEuroParams, filter_sequence, one_euro_step, smoothing_factor
+from redact.vision.smoothing import OneEuroParams, filter_sequence, one_euro_step, smoothing_factor
 
 
 def test_smoothing_factor_formula():

@@ -7,7 +7,7 @@ import time
 
 import pytest
 
-from redact.stages import WriteBehind, map_ahead, read_ahead
+from redact.media.stages import WriteBehind, map_ahead, read_ahead
 
 
 def test_read_ahead_keeps_order_and_bounds_the_queue():

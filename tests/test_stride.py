@@ -12,12 +12,12 @@ from fractions import Fraction
 import av
 import numpy as np
 import pytest
+from conftest import make_clip
 from skimage.metrics import structural_similarity
 
-from conftest import make_clip
-from redact import synthetic as syn
+from redact.media import synthetic as syn
 from redact.pipeline import ProcessSettings, process_video
-from redact.signing import Signer
+from redact.provenance.signing import Signer
 
 MIN_SIDE = 16  # slivers at the frame edge are not measured (see tests/test_process.py)
 

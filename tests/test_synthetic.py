@@ -1,4 +1,4 @@
-"""redact.synthetic: the ground truth must match where the stills' pixels really are.
+"""redact.media.synthetic: the ground truth must match where the stills' pixels really are.
 
 Outside reference: the scikit-image stills themselves (astronaut() public domain, NASA;
 camera() CC0, Lav Varshney), loaded from the installed package, and OpenCV's resize.
@@ -11,8 +11,8 @@ from fractions import Fraction
 import numpy as np
 import pytest
 
-from redact import synthetic as syn
 from redact.errors import InputError
+from redact.media import synthetic as syn
 
 
 def _spec(actors, **kw):

@@ -6,9 +6,9 @@ import numpy as np
 import pytest
 
 from redact.errors import InputError
-from redact.records import Poses, Tracks
-from redact.skeleton import NUM_KEYPOINTS
-from redact.track import Tracker, TrackerConfig
+from redact.vision.records import Poses, Tracks
+from redact.vision.skeleton import NUM_KEYPOINTS
+from redact.vision.track import Tracker, TrackerConfig
 
 FPS = 25.0
 W, H = 60.0, 160.0  # synthetic person box size (px)

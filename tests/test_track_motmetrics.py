@@ -21,9 +21,9 @@ if not hasattr(np, "asfarray"):  # NumPy 2 removed np.asfarray, which motmetrics
 import motmetrics as mm  # noqa: E402  (a test extra in pyproject.toml; missing means failing, not skipping)
 import pandas as pd  # noqa: E402  (a dependency of motmetrics)
 
-from redact.records import Poses  # noqa: E402
-from redact.skeleton import NUM_KEYPOINTS  # noqa: E402
-from redact.track import Tracker, TrackerConfig  # noqa: E402
+from redact.vision.records import Poses  # noqa: E402
+from redact.vision.skeleton import NUM_KEYPOINTS  # noqa: E402
+from redact.vision.track import Tracker, TrackerConfig  # noqa: E402
 
 # motmetrics 1.4.0 io.py subtracts a tuple from DataFrame columns, which recent pandas deprecates.
 pytestmark = pytest.mark.filterwarnings("ignore:Operation with tuple is deprecated")

@@ -15,16 +15,15 @@ import cv2
 import numpy as np
 import pytest
 from click.testing import CliRunner
+from conftest import ScriptedEstimator
 from PIL import Image
 from skimage.metrics import structural_similarity
 
 from redact.cli import main
 from redact.errors import OutputError
 from redact.pipeline import ProcessSettings, process_video
-from redact.signing import Signer
+from redact.provenance.signing import Signer
 from redact.tracksheet import CROP_HEIGHT, CROP_MARGIN, README_NAME, make_track_sheet
-
-from conftest import ScriptedEstimator
 
 SEED = bytes(range(32))
 

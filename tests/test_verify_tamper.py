@@ -10,13 +10,14 @@ import tarfile
 from pathlib import Path
 
 import pytest
-from hypothesis import given, settings, strategies as st
-
-from redact import jsonio, signing
-from redact.errors import InputError, VerificationFailed
-from redact.verify import verify_package
-
+from hypothesis import given, settings
+from hypothesis import strategies as st
 from test_package import SEED, build_package
+
+from redact import jsonio
+from redact.errors import InputError, VerificationFailed
+from redact.provenance import signing
+from redact.provenance.verify import verify_package
 
 OTHER_SEED = bytes(range(100, 132))
 

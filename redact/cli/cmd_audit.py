@@ -1,4 +1,4 @@
-"""`redact audit`: an independent check that a redacted video hides everyone (see redact.audit)."""
+"""`redact audit`: an independent check that a redacted video hides everyone (see redact.redaction.audit)."""
 
 from __future__ import annotations
 
@@ -87,7 +87,7 @@ def audit(redacted: Path, source: Path | None, step: int, face_score: float | No
     pose model sees on the redaction's own grey fill (its stick figures) are listed but not
     counted.
     """
-    from redact.audit import AuditSettings, audit_video
+    from redact.redaction.audit import AuditSettings, audit_video
 
     settings = AuditSettings(step=step, face_score=face_score, pose_score=pose_score)
     report = audit_video(redacted, source, settings, progress=_Progress(quiet or as_json))

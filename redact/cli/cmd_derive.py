@@ -49,9 +49,9 @@ def derive_cmd(package: Path, keys: tuple[Path, ...], sign_key: Path, out: Path,
     de-identified: dropped keypoints, standard body proportions, relative coordinates, fewer frames,
     coarser numbers, noise, new track ids, relative time.
     """
-    from redact.derive import derive
     from redact.errors import InputError
-    from redact.signing import load_private_key, load_public_key
+    from redact.provenance.signing import load_private_key, load_public_key
+    from redact.skeletons.derive import derive
 
     if privacy is None:
         raise InputError("no de-identification option given; choose at least one (see --help)")

@@ -57,8 +57,8 @@ the signed frame size; without it the package is read unverified.""")
 def export_cmd(package: Path, keys: tuple[Path, ...], fmt: str, out: Path, gt_out: Path | None, frame_size,
                force: bool, as_json: bool) -> None:
     from redact.errors import InputError
-    from redact.export import export_package
-    from redact.signing import load_public_key
+    from redact.provenance.signing import load_public_key
+    from redact.skeletons.export import export_package
 
     if fmt == "npz" and (gt_out is not None or frame_size is not None):
         raise InputError("--gt-out and --frame-size only apply to --format coco")

@@ -19,11 +19,12 @@ from redact.cli.common import echo_json, library_errors
 
 def _verified_frames(package: Path, keys: tuple[Path, ...]):
     """Verify the package, then return (verified package, per-frame digests)."""
-    from redact import jsonio, merkle
-    from redact.package import FRAMES, open_package
-    from redact.signing import load_public_key
-    from redact.verify import verify_package
+    from redact import jsonio
     from redact.errors import InputError
+    from redact.provenance import merkle
+    from redact.provenance.package import FRAMES, open_package
+    from redact.provenance.signing import load_public_key
+    from redact.provenance.verify import verify_package
 
     result = verify_package(package, [load_public_key(k) for k in keys])
     with open_package(package) as reader:
@@ -48,8 +49,8 @@ audit path; it reveals nothing about other frames beyond their hashes.""")
 @library_errors
 def frame_proof(package: Path, keys: tuple[Path, ...], frame: int, out: Path) -> None:
     """Write an RFC 6962 inclusion proof that frame N belongs to the package's signed source."""
-    from redact import merkle
     from redact.errors import OutputError
+    from redact.provenance import merkle
 
     result, digests = _verified_frames(package, keys)
     src = result.predicate.get("source", {})
@@ -84,8 +85,8 @@ Exit status: 0 the proof holds, 1 it does not (every reason is listed), 2 usage 
 def frame_check(proof_file: Path, package: Path | None, keys: tuple[Path, ...], root_hex: str | None,
                 digest_hex: str | None, as_json: bool) -> None:
     """Check that PROOF_FILE shows its frame is a leaf of a signed frames_root."""
-    from redact import merkle
     from redact.errors import InputError
+    from redact.provenance import merkle
 
     hex64 = re.compile(r"[0-9a-f]{64}")
     if (package is None) == (root_hex is None):

@@ -24,8 +24,8 @@ on it. Skeleton data is pseudonymised, not anonymous: handle the package as pers
 @library_errors
 def inspect(package: Path, keys: tuple[Path, ...], as_json: bool) -> None:
     """Summarise PACKAGE: source, model, key id, counts of frames/people/tracks, flagged ranges."""
-    from redact.package import summarise_package
-    from redact.signing import load_public_key
+    from redact.provenance.package import summarise_package
+    from redact.provenance.signing import load_public_key
 
     trusted = [load_public_key(k) for k in keys]
     summary = summarise_package(package, trusted or None)

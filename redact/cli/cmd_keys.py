@@ -54,7 +54,7 @@ def keygen(out_dir: Path, name: str) -> None:
     overwritten.
     """
     from redact.errors import InputError
-    from redact.signing import generate_key
+    from redact.provenance.signing import generate_key
 
     if not name or "/" in name or "\\" in name or name.startswith(".") or "\x00" in name:
         raise InputError(f"--name {name!r} must be a plain file name")

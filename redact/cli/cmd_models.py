@@ -19,7 +19,7 @@ def models_command(as_json: bool) -> None:
 
     Example: redact models
     """
-    from redact.models import check_model, list_models
+    from redact.vision.models import check_model, list_models
 
     rows = []
     for m in list_models():

@@ -137,7 +137,7 @@ def process(source: Path, out: Path, key: Path, settings, privacy, disclosure, p
     loses them for a while; a frame that cannot be processed is obscured whole. Frames where
     people are likely missed (dark, blurred, low confidence, lost tracks) are listed for review.
     """
-    from redact.signing import load_private_key
+    from redact.provenance.signing import load_private_key
 
     if not source.exists():
         raise InputError(f"{source}: no such file")
@@ -176,7 +176,7 @@ use `redact keygen` and `redact process --key` for real material.
 @library_errors
 def demo(out: Path | None, clip: Path | None, settings, as_json: bool, quiet: bool) -> None:
     """Run the whole job on the invented demo scene and say what to open first."""
-    from redact.signing import generate_key, load_private_key
+    from redact.provenance.signing import generate_key, load_private_key
 
     source = clip or demo_clip()
     out = out or Path("redact-demo-output") / datetime.now(timezone.utc).strftime("%Y%m%dT%H%M%SZ")
@@ -189,8 +189,8 @@ def demo(out: Path | None, clip: Path | None, settings, as_json: bool, quiet: bo
     disclosure = {"recipient": "demo recipient", "organisation": "demo", "purpose": "demonstration of redact",
                   "date": datetime.now(timezone.utc).date().isoformat()}
     result = _run(source, out, signer, settings, disclosure, as_json, quiet)
-    from redact.report import build_report
-    from redact.signing import load_public_key
+    from redact.provenance.signing import load_public_key
+    from redact.report.document import build_report
 
     report = out / "report.html"
     tmp = out / ".report.html.partial"

@@ -66,8 +66,8 @@ def report(package: Path, keys: tuple[Path, ...], video: Path | None, source: Pa
            force: bool) -> None:
     """Verify PACKAGE and write a readable, printable disclosure report of it to -o FILE."""
     from redact.errors import InputError
-    from redact.report import make_report
-    from redact.signing import load_public_key
+    from redact.provenance.signing import load_public_key
+    from redact.report.document import make_report
 
     for p, what in ((video, "--video"), (source, "--source")):
         if p is not None and not p.is_file():

@@ -39,8 +39,8 @@ def verify(package: Path, keys: tuple[Path, ...], source: Path | None, video: Pa
     file set must be exactly the signed one, every SHA-256 must match, the transform log chain
     must be intact, and --source / --video must match when given.
     """
-    from redact.signing import load_public_key
-    from redact.verify import verify_package
+    from redact.provenance.signing import load_public_key
+    from redact.provenance.verify import verify_package
 
     trusted = [load_public_key(k) for k in keys]
     try:

@@ -7,13 +7,13 @@ from datetime import date
 
 import click
 
-from redact.models import DEFAULT_POSE_MODEL, list_models
 from redact.pipeline import ProcessSettings
-from redact.pose import PoseSettings
-from redact.quality import ReviewRules
-from redact.regions import RegionSettings
-from redact.render import STYLES, RenderSettings
-from redact.track import TrackerConfig
+from redact.redaction.quality import ReviewRules
+from redact.redaction.regions import RegionSettings
+from redact.redaction.render import STYLES, RenderSettings
+from redact.vision.models import DEFAULT_POSE_MODEL, list_models
+from redact.vision.pose import PoseSettings
+from redact.vision.track import TrackerConfig
 
 POSE_MODELS = tuple(m.id for m in list_models() if m.task == "pose")
 

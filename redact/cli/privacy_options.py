@@ -1,4 +1,4 @@
-"""The skeleton de-identification options (redact.privacy) as one click decorator, shared by
+"""The skeleton de-identification options (redact.skeletons.privacy) as one click decorator, shared by
 `redact derive` and `redact process`: the command receives `privacy`, a PrivacyOptions, or None
 when every option is left off."""
 
@@ -10,7 +10,7 @@ import sys
 import click
 
 from redact.errors import RedactError
-from redact.privacy import COORDINATE_MODES, MAX_DECIMALS, PrivacyOptions
+from redact.skeletons.privacy import COORDINATE_MODES, MAX_DECIMALS, PrivacyOptions
 
 PRIVACY_CAUTION = (
     "These options lower but do not remove the risk of re-identification: people are recognised "

@@ -19,8 +19,8 @@ from typing import Iterable, Iterator
 
 import numpy as np
 
-from redact.records import Tracks
-from redact.skeleton import NUM_KEYPOINTS
+from redact.vision.records import Tracks
+from redact.vision.skeleton import NUM_KEYPOINTS
 
 STATUS_OK = "ok"
 STATUS_FAULT = "fault"

@@ -24,7 +24,7 @@ import cv2
 import numpy as np
 
 from redact.errors import RedactError
-from redact.records import Tracks
+from redact.vision.records import Tracks
 
 #: ITU-R BT.601 luma coefficients for R', G', B'.
 BT601 = (0.299, 0.587, 0.114)

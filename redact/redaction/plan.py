@@ -36,9 +36,9 @@ from typing import Any, Iterable
 import numpy as np
 
 from redact import jsonio
-from redact.costs import iou_matrix
 from redact.errors import InputError, PackageError, PlanError, RedactError
-from redact.records import Tracks
+from redact.vision.costs import iou_matrix
+from redact.vision.records import Tracks
 
 PLAN_VERSION = "redact-plan/1"
 #: Largest plan file accepted, in bytes (common practice: plans are hand-written, a few kB).
@@ -472,7 +472,7 @@ def _track_sheet(v) -> dict:
 
 
 def parse_plan(data: bytes, info, known_track_ids: Iterable[int] | None = None, name: str = "plan") -> Plan:
-    """Validate plan bytes against a video (info: redact.video.VideoInfo or anything with width,
+    """Validate plan bytes against a video (info: redact.media.video.VideoInfo or anything with width,
     height, frames, duration). known_track_ids: the video's track ids when known (e.g. from the
     track sheet's tracks.json); when None, call `Plan.check_end` once the ids are known."""
     try:

@@ -333,9 +333,9 @@ def render_scene(spec: SceneSpec) -> Iterator[tuple[np.ndarray, FrameTruth]]:
 
 
 def write_clip(spec: SceneSpec, path: str | Path, crf: int = 20, preset: str = "veryfast") -> list[FrameTruth]:
-    """Render the scene to an H.264 MP4 with redact.video.VideoWriter (byte-reproducible settings);
+    """Render the scene to an H.264 MP4 with redact.media.video.VideoWriter (byte-reproducible settings);
     returns the per-frame truth."""
-    from redact.video import VideoWriter  # noqa: PLC0415
+    from redact.media.video import VideoWriter  # noqa: PLC0415
 
     truths = []
     with VideoWriter(path, spec.width, spec.height, spec.time_base, spec.fps, crf=crf, preset=preset,

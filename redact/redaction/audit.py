@@ -1,7 +1,7 @@
 """Independent audit of a redacted video: are faces or people still detectable in it?
 
 Two detectors scan the video (RGB frames [H,W,3]):
-- faces: the bundled BlazeFace-family face detector (MediaPipe, Apache-2.0; redact.face), a
+- faces: the bundled BlazeFace-family face detector (MediaPipe, Apache-2.0; redact.vision.face), a
   different model family from the pose model that decided what to redact, so its blind spots
   are largely different (see models_manifest/face_detector.md). Its full-range variant sees a
   192×192 letterbox of what it is given, so a face 40 px wide in a 1280×720 frame becomes 6 px.
@@ -50,12 +50,12 @@ from typing import Callable
 import numpy as np
 
 from redact.errors import InputError
-from redact.models import DEFAULT_FACE_MODEL, FLOAT_POSE_MODEL
+from redact.vision.models import DEFAULT_FACE_MODEL, FLOAT_POSE_MODEL
 
 Box = tuple[float, float, float, float]  # x1, y1, x2, y2 in frame pixels
 Detection = tuple[Box, float]  # (box, score)
 
-# The redaction's solid fill (redact.render.FILL_GREY); repeated here so that importing the audit
+# The redaction's solid fill (redact.redaction.render.FILL_GREY); repeated here so that importing the audit
 # does not pull in the renderer; tests/test_audit.py checks the two agree.
 FILL_GREY = 128
 # COCO-17 head keypoints: nose, left eye, right eye, left ear, right ear (cocodataset.org order).
@@ -365,9 +365,9 @@ class _Detectors:
     """The two hash-checked models, opened once for a whole audit."""
 
     def __init__(self, settings: AuditSettings):
-        from redact.face import FaceDetector
-        from redact.models import get_model, open_session
-        from redact.pose import PoseEstimator, PoseSettings
+        from redact.vision.face import FaceDetector
+        from redact.vision.models import get_model, open_session
+        from redact.vision.pose import PoseEstimator, PoseSettings
 
         face_entry = get_model(settings.face_model, task="face-detection")
         if face_entry.task != "face-detection":
@@ -425,7 +425,7 @@ def finding_ranges(frames: tuple[FrameAudit, ...], step: int) -> tuple[tuple[int
 
 def _check_pair(video: Path, source: Path):
     """Probe both files; InputError unless they can be compared frame by frame."""
-    from redact.video import probe
+    from redact.media.video import probe
 
     vi, si = probe(video), probe(source)
     if video.resolve() == source.resolve():
@@ -433,7 +433,7 @@ def _check_pair(video: Path, source: Path):
     if vi.frames != si.frames:
         raise InputError(f"{video} has {vi.frames} frames and {source} has {si.frames}; the audit compares "
                          "frames by index, so give the source this video was made from")
-    # The encoder pads odd sizes by one row/column (redact.video.VideoWriter), on the right/bottom.
+    # The encoder pads odd sizes by one row/column (redact.media.video.VideoWriter), on the right/bottom.
     if not (vi.width - si.width in (0, si.width & 1) and vi.height - si.height in (0, si.height & 1)):
         raise InputError(f"{video} is {vi.width}x{vi.height} and {source} is {si.width}x{si.height}; "
                          "the audit compares boxes in the same pixels, so the sizes must match")
@@ -449,7 +449,7 @@ def audit_video(redacted: str | Path, source: str | Path | None = None, settings
     each decoded frame. Raises InputError for unusable files or a mismatched source, ModelError
     when a bundled model fails its hash check.
     """
-    from redact.video import VideoReader, probe
+    from redact.media.video import VideoReader, probe
 
     video = Path(redacted)
     src = Path(source) if source is not None else None

@@ -18,7 +18,7 @@ import cv2
 import numpy as np
 
 from redact.errors import RedactError
-from redact.records import Tracks
+from redact.vision.records import Tracks
 
 #: Vertices used to approximate the padding disc around each keypoint.
 _DISC_VERTICES = 16

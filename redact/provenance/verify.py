@@ -23,12 +23,24 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Sequence
 
-from redact import jsonio, merkle, signing
+from redact import jsonio
 from redact.errors import InputError, PackageError, VerificationFailed
 from redact.hashing import sha256_file, sha256_stream
-from redact.log import check_chain
-from redact.package import (ENVELOPE, ENVELOPE_LIMIT, FRAMES, LOG, PREDICATE_TYPE, ROLE_FILE, ROLE_VIDEO,
-                            PackageReader, TarReader, check_name, open_package)
+from redact.provenance import merkle, signing
+from redact.provenance.log import check_chain
+from redact.provenance.package import (
+    ENVELOPE,
+    ENVELOPE_LIMIT,
+    FRAMES,
+    LOG,
+    PREDICATE_TYPE,
+    ROLE_FILE,
+    ROLE_VIDEO,
+    PackageReader,
+    TarReader,
+    check_name,
+    open_package,
+)
 
 _HEX64 = re.compile(r"[0-9a-f]{64}")
 

@@ -26,10 +26,11 @@ from contextlib import contextmanager
 from pathlib import Path
 from typing import BinaryIO, Callable, Iterator
 
-from redact import jsonio, merkle, signing
+from redact import jsonio
 from redact.errors import OutputError, PackageError
 from redact.hashing import sha256_file, sha256_stream
-from redact.log import TransformLog
+from redact.provenance import merkle, signing
+from redact.provenance.log import TransformLog
 
 PREDICATE_TYPE = "https://redact.invalid/skeleton-package/v1"  # ours; .invalid is reserved (RFC 6761)
 ENVELOPE = "envelope.json"
@@ -427,7 +428,7 @@ def summarise_package(path: Path, trusted_keys: list | None = None) -> dict:
     the summary is marked unverified. Every file is still parsed strictly.
     """
     if trusted_keys:
-        from redact.verify import verify_package
+        from redact.provenance.verify import verify_package
 
         result = verify_package(path, trusted_keys)
         statement, key_id, verified = result.statement, result.key_id, True

@@ -6,7 +6,7 @@ returns a [N,M] float64 matrix in 0..1 where 0 is a perfect match. The tracker g
 on it; it never looks inside. Build one with `make_cost(name, ...)`; names are in `COST_NAMES`.
 
 Box overlap is intersection over union; keypoint similarity is COCO's Object Keypoint
-Similarity (OKS, cocodataset.org keypoint evaluation) from redact.skeleton.oks_matrix, with the
+Similarity (OKS, cocodataset.org keypoint evaluation) from redact.vision.skeleton.oks_matrix, with the
 detection as the reference pose and its box area standing in for the object area s²
 (common practice when no segmentation exists; COCO itself uses the segment area).
 """
@@ -19,7 +19,7 @@ from typing import Callable
 import numpy as np
 
 from redact.errors import InputError
-from redact.skeleton import NUM_KEYPOINTS, oks_matrix
+from redact.vision.skeleton import NUM_KEYPOINTS, oks_matrix
 
 #: A cost function: (track boxes [N,4], track kps [N,17,3], det boxes [M,4], det kps [M,17,3]) -> [N,M].
 CostFn = Callable[[np.ndarray, np.ndarray, np.ndarray, np.ndarray], np.ndarray]
@@ -58,7 +58,7 @@ def oks_similarity(track_kps: np.ndarray, det_boxes: np.ndarray, det_kps: np.nda
     """OKS [N,M] of track poses against detection poses, and a validity mask [N,M].
 
     A pair is valid when both poses have at least one keypoint above min_conf; OKS counts only
-    the detection's confident keypoints (redact.skeleton.oks_matrix).
+    the detection's confident keypoints (redact.vision.skeleton.oks_matrix).
     """
     sim = oks_matrix(track_kps, det_kps, box_areas(det_boxes), min_conf=min_conf)
     valid = (keypoint_counts(track_kps, min_conf)[:, None] > 0) & (keypoint_counts(det_kps, min_conf)[None, :] > 0)

@@ -1,7 +1,7 @@
 """Research export of a package's skeletons.jsonl: per-track NumPy arrays (.npz) or COCO keypoint results.
 
-The package is a directory or a .tar read in place (redact.package.open_package); with trusted keys
-it is verified first (redact.verify) and the bytes exported are checked against the signed hash.
+The package is a directory or a .tar read in place (redact.provenance.package.open_package); with trusted keys
+it is verified first (redact.provenance.verify) and the bytes exported are checked against the signed hash.
 
 The exported data are what the package holds: pseudonymised personal data, not anonymous
 (GDPR Art. 4(5), Recital 26); people can be re-identified from skeletons (GaitPT, arXiv 2308.10623).
@@ -34,10 +34,10 @@ from typing import Iterable, Iterator, Sequence
 import numpy as np
 
 from redact.errors import InputError, OutputError, PackageError, VerificationFailed
-from redact.package import open_package
-from redact.privacy import decode_row_extras
-from redact.rows import decode_row
-from redact.skeleton import KEYPOINT_NAMES, LINKS_1BASED
+from redact.provenance.package import open_package
+from redact.skeletons.privacy import decode_row_extras
+from redact.skeletons.rows import decode_row
+from redact.vision.skeleton import KEYPOINT_NAMES, LINKS_1BASED
 
 FORMATS = ("npz", "coco")
 SKELETONS = "skeletons.jsonl"
@@ -72,15 +72,15 @@ def _stream(package: Path, want: dict | None) -> Iterator[bytes]:
 
 
 def read_package(package: str | Path, trusted_keys: Sequence | None = None) -> PackageSource:
-    """Open PACKAGE (a directory or .tar) for export. With trusted keys (redact.signing.PublicKey) it
-    is verified first (redact.verify: signature, file set, hashes, log) and VerificationFailed lists
+    """Open PACKAGE (a directory or .tar) for export. With trusted keys (redact.provenance.signing.PublicKey) it
+    is verified first (redact.provenance.verify: signature, file set, hashes, log) and VerificationFailed lists
     every problem; without, the lines are read unverified."""
     package = Path(package)
     if not (package.is_dir() or package.is_file()):
         raise InputError(f"{package}: not a package directory or .tar file")
     if not trusted_keys:
         return PackageSource(_stream(package, None), False)
-    from redact.verify import verify_package
+    from redact.provenance.verify import verify_package
 
     result = verify_package(package, list(trusted_keys))
     want = next((s for s in result.subjects if s["name"] == SKELETONS and s["annotations"]["role"] == "package-file"),

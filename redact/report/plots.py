@@ -3,7 +3,7 @@
 The timeline is drawn with matplotlib on an explicit Agg canvas (no pyplot, no global backend
 change) and saved as SVG with text kept as text, no date and a fixed id salt, so the same data
 gives the same bytes. Thumbnails come ONLY from the redacted video: frames are decoded with
-redact.video.VideoReader and re-encoded as small JPEG data URIs.
+redact.media.video.VideoReader and re-encoded as small JPEG data URIs.
 """
 
 from __future__ import annotations
@@ -158,7 +158,7 @@ def data_uri(jpeg: bytes) -> str:
 def redacted_frames(video: Path, wanted: set[int]) -> dict[int, np.ndarray]:
     """Decode the REDACTED video once, up to the last wanted frame, and return those frames
     (index → RGB uint8 [H, W, 3]). Frame indices count decoded frames from 0, as in the package."""
-    from redact.video import VideoReader
+    from redact.media.video import VideoReader
 
     out: dict[int, np.ndarray] = {}
     if not wanted:

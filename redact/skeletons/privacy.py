@@ -20,7 +20,7 @@ may be made relative to the first row. Each filter counts what it removed (`Priv
 
 Rows written in frame or track units carry `"units":"frame"` or `"units":"track"` after
 `"status"` (absent means pixels) and, for track units with the position kept, each person
-carries `"centre":[x,y]` in fractions of the frame; `redact.rows.decode_row` reads such rows
+carries `"centre":[x,y]` in fractions of the frame; `redact.skeletons.rows.decode_row` reads such rows
 unchanged (it ignores the extra keys), `decode_row_extras` reads the extras.
 """
 
@@ -37,9 +37,9 @@ from typing import Iterable, Iterator
 import numpy as np
 
 from redact.errors import InputError
-from redact.records import Tracks
-from redact.rows import COORD_DECIMALS, CONF_DECIMALS, TIME_DECIMALS, FrameRow, _num, encode_row
-from redact.skeleton import HEAD_KEYPOINTS, KEYPOINT_NAMES, NUM_KEYPOINTS
+from redact.skeletons.rows import CONF_DECIMALS, COORD_DECIMALS, TIME_DECIMALS, FrameRow, _num, encode_row
+from redact.vision.records import Tracks
+from redact.vision.skeleton import HEAD_KEYPOINTS, KEYPOINT_NAMES, NUM_KEYPOINTS
 
 COORDINATE_MODES = ("pixels", "frame", "track")
 #: Default decimals per coordinate mode: pixels as in rows.py; 5 decimals of a frame fraction
@@ -531,7 +531,7 @@ def apply_privacy_file(src, dst, options: PrivacyOptions, frame_size: tuple[int,
     and rename; return the summary."""
     from pathlib import Path
 
-    from redact.rows import read_rows
+    from redact.skeletons.rows import read_rows
 
     src, dst = Path(src), Path(dst)
     scan = None

@@ -9,7 +9,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from redact.skeleton import NUM_KEYPOINTS
+from redact.vision.skeleton import NUM_KEYPOINTS
 
 
 def _check(name: str, arr: np.ndarray, shape: tuple, dtype) -> np.ndarray:

@@ -1,5 +1,5 @@
 """Derived packages: a new signed, skeleton-only package made from a verified one under
-de-identification options (redact.privacy), whose log names the parent's signed statement.
+de-identification options (redact.skeletons.privacy), whose log names the parent's signed statement.
 
 `rewrite_skeleton_files` applies the options inside a staging package directory and keeps the
 other files consistent with the new rows: tracks.json is rebuilt from them (new ids, counts of
@@ -32,10 +32,19 @@ from typing import Sequence
 
 from redact import __version__, jsonio
 from redact.errors import InputError, OutputError, PackageError, VerificationFailed
-from redact.log import TransformLog, utc_now
-from redact.package import (ENVELOPE, LOG, QUALITY, REVIEW, ROLE_FILE, SKELETONS, TRACKS, open_package,
-                            write_package)
-from redact.privacy import PrivacyOptions, apply_privacy_file, parse_keypoints
+from redact.provenance.log import TransformLog, utc_now
+from redact.provenance.package import (
+    ENVELOPE,
+    LOG,
+    QUALITY,
+    REVIEW,
+    ROLE_FILE,
+    SKELETONS,
+    TRACKS,
+    open_package,
+    write_package,
+)
+from redact.skeletons.privacy import PrivacyOptions, apply_privacy_file, parse_keypoints
 
 #: Predicate keys carried over from the parent as they are (what the source, model and run were).
 CARRIED_KEYS = ("source", "model", "parameters", "review", "faults")
@@ -66,7 +75,7 @@ def _first_time_and_units(path: Path) -> float | None:
 def _sort_people(line: bytes, people: list[dict]) -> bytes:
     """The row with its people sorted by id, rebuilt from the row's own bytes (numbers unchanged).
 
-    Relies on the fixed layout written by redact.rows / redact.privacy: person objects hold only
+    Relies on the fixed layout written by redact.skeletons.rows / redact.skeletons.privacy: person objects hold only
     arrays, so consecutive people are separated by exactly `},{"id":`.
     """
     head, sep, rest = line.partition(_PEOPLE)
@@ -138,7 +147,7 @@ def _rows_pass(path: Path) -> tuple[dict[int, dict], int]:
 
 def _retime_quality(path: Path, t0: float) -> int:
     """quality.jsonl with t relative to t0; every line must re-encode to its own bytes first."""
-    from redact.quality import FrameQuality, encode_quality_line
+    from redact.redaction.quality import FrameQuality, encode_quality_line
 
     out, n = [], 0
     with open(path, "rb") as f:
@@ -156,7 +165,7 @@ def _retime_quality(path: Path, t0: float) -> int:
 
 
 def _retime_review(path: Path, t0: float) -> int:
-    """review.json with t_start / t_end relative to t0 (same layout as redact.quality.review_document)."""
+    """review.json with t_start / t_end relative to t0 (same layout as redact.redaction.quality.review_document)."""
     doc = jsonio.loads(path.read_bytes(), REVIEW)
     ranges = doc.get("ranges") if isinstance(doc, dict) else None
     if not isinstance(ranges, list):
@@ -257,7 +266,7 @@ def _copy_verified(parent: Path, staging: Path, subjects: dict[str, dict]) -> li
 def derive(parent: Path, out: Path, trusted_keys: Sequence, signer, options: PrivacyOptions,
            disclosure: dict | None = None, archive: bool = False) -> DerivedPackage:
     """derive_package, returning what was written (payload, parent record, privacy summary)."""
-    from redact.verify import verify_package
+    from redact.provenance.verify import verify_package
 
     parent, out = Path(parent), Path(out)
     if not isinstance(options, PrivacyOptions):

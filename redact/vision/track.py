@@ -4,7 +4,7 @@ The tracker owns only the lifecycle of a track: predict, match, hit, age, retire
 - Predict: constant velocity of the box centre (px/s, from frame times, so variable frame rates
   work); the box keeps its last observed size; keypoints move with the box centre.
 - Match: Hungarian assignment (H. W. Kuhn, "The Hungarian method for the assignment problem",
-  1955; scipy.optimize.linear_sum_assignment solves the same problem) on a cost from redact.costs ("iou", "oks", "iou+oks"), with pairs above `max_cost` or below
+  1955; scipy.optimize.linear_sum_assignment solves the same problem) on a cost from redact.vision.costs ("iou", "oks", "iou+oks"), with pairs above `max_cost` or below
   `min_iou` gated out. Gated entries get a large finite cost, so the solver first maximises the
   number of feasible pairs, then minimises their total cost; gated pairs are then dropped.
   Tracks with fewer than `established_hits` observations are matched in a second round, on the
@@ -13,7 +13,7 @@ The tracker owns only the lifecycle of a track: predict, match, hit, age, retire
   association, Bewley et al. 2016). These rounds change which id a detection continues, never
   whether a person is reported.
 - Hit: a matched track takes the detection's box and score (never smoothed: the obscured region
-  follows the raw evidence); its keypoints go through the One Euro filter (redact.smoothing)
+  follows the raw evidence); its keypoints go through the One Euro filter (redact.vision.smoothing)
   because they are drawn as stick figures. Matching uses the last detected (raw) keypoints,
   since the smoother lags behind motion. The centre velocity is an exponential average over
   observations (`velocity_smoothing` = weight of the newest one).
@@ -28,7 +28,7 @@ prediction and report it as predicted with a growing margin, but do NOT count to
 not looking is no evidence that the person left. With a stride of s frames, a lost track is
 therefore reported for up to about `max_coast_frames * s` frames.
 
-Reported per track (redact.records.Tracks, rows sorted by id): boxes (observed: the detection
+Reported per track (redact.vision.records.Tracks, rows sorted by id): boxes (observed: the detection
 box; coasting: the predicted box), scores (the last detection score), keypoints (observed: the
 smoothed keypoints with raw confidences; coasting: the last drawn keypoints moved with the box),
 observed, misses (frames of any kind since the last observation) and margin.
@@ -45,11 +45,11 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from redact.costs import COST_NAMES, iou_matrix, make_cost
 from redact.errors import InputError
-from redact.records import Poses, Tracks
-from redact.skeleton import NUM_KEYPOINTS
-from redact.smoothing import OneEuroParams, OneEuroState, one_euro_step
+from redact.vision.costs import COST_NAMES, iou_matrix, make_cost
+from redact.vision.records import Poses, Tracks
+from redact.vision.skeleton import NUM_KEYPOINTS
+from redact.vision.smoothing import OneEuroParams, OneEuroState, one_euro_step
 
 #: Cost given to gated pairs: far above any real cost (real costs lie in 0..1).
 _GATED = 1e6
@@ -70,7 +70,7 @@ class TrackerConfig:
     track still unmatched then takes a leftover detection its predicted box overlaps by at least
     this IoU (0 = off; 0.3 is SORT's IOU_min, Bewley et al. 2016) when it has gone unmatched for
     fallback_after detection frames, this one included. One Euro parameters: Casiez et al. 2012
-    (redact.smoothing).
+    (redact.vision.smoothing).
     Defaults are our own choices (no published source). velocity_smoothing was picked on the TUD
     validation in tests/test_track_motmetrics.py; the cost weights favour OKS because on real pose
     output of two people crossing (tests/test_process.py) box overlap alone swaps their ids while

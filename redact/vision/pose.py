@@ -13,9 +13,9 @@ import cv2
 import numpy as np
 
 from redact.errors import InputError
-from redact.models import DEFAULT_POSE_MODEL
-from redact.records import Poses
-from redact.skeleton import NUM_KEYPOINTS
+from redact.vision.models import DEFAULT_POSE_MODEL
+from redact.vision.records import Poses
+from redact.vision.skeleton import NUM_KEYPOINTS
 
 PAD_VALUE = 114  # grey padding used when the model was trained (ultralytics LetterBox default)
 STRIDE = 32      # input sides must be multiples of the model's largest stride
@@ -186,7 +186,7 @@ class PoseEstimator:
     @classmethod
     def default(cls, settings: PoseSettings = PoseSettings(), threads: int | None = None) -> "PoseEstimator":
         """The bundled model settings.model names, hash-checked, on the CPU."""
-        from redact.models import get_model, open_session
+        from redact.vision.models import get_model, open_session
 
         entry = get_model(settings.model, task="pose")
         return cls(open_session(entry, threads), settings)

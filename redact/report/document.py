@@ -1,6 +1,6 @@
 """The disclosure report: one self-contained HTML page a non-engineer can read, print and file.
 
-`build_report` verifies the package (redact.verify.verify_package), then reads what it can of it
+`build_report` verifies the package (redact.provenance.verify.verify_package), then reads what it can of it
 and lays out: the verification result (prominent, at the top, with every finding when it
 failed), the cautions, what was processed, the disclosure record, the model and settings, a
 timeline of people / keypoint confidence / luma with the review ranges shaded, the review ranges
@@ -21,9 +21,9 @@ import numpy as np
 
 from redact import __version__, jsonio
 from redact.errors import InputError, PackageError, VerificationFailed
-from redact.log import DISCLOSURE_FIELDS, utc_now
-from redact.package import LOG, QUALITY, REVIEW, open_package, read_statement_unverified
-from redact.report_plots import Timeline, data_uri, redacted_frames, thumbnail_jpeg, timeline_svg
+from redact.provenance.log import DISCLOSURE_FIELDS, utc_now
+from redact.provenance.package import LOG, QUALITY, REVIEW, open_package, read_statement_unverified
+from redact.report.plots import Timeline, data_uri, redacted_frames, thumbnail_jpeg, timeline_svg
 
 #: Most review ranges that get a thumbnail (keeps the page printable; common practice).
 MAX_THUMBNAILS = 60
@@ -31,7 +31,7 @@ MAX_THUMBNAILS = 60
 MAX_QUALITY_ROWS = 2_000_000
 #: Most log entries shown in the table (common practice).
 MAX_LOG_ROWS = 500
-REVIEW_LIMIT = 64 * 1024 * 1024  # bytes; common practice, as redact.package
+REVIEW_LIMIT = 64 * 1024 * 1024  # bytes; common practice, as redact.provenance.package
 
 REASON_WORDS = {
     "dark": "dark picture",
@@ -522,7 +522,7 @@ def make_report(package: Path, trusted_keys: list, video: Path | None = None,
 
     InputError for a package path that does not exist or an empty key list (usage errors).
     """
-    from redact.verify import verify_package
+    from redact.provenance.verify import verify_package
 
     package = Path(package)
     if not package.is_dir() and not package.is_file():

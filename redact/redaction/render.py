@@ -22,10 +22,10 @@ import cv2
 import numpy as np
 
 from redact.errors import RedactError
-from redact.plate import Plate
-from redact.records import Tracks
-from redact.regions import RegionSettings, track_regions
-from redact.skeleton import LINKS
+from redact.redaction.plate import Plate
+from redact.redaction.regions import RegionSettings, track_regions
+from redact.vision.records import Tracks
+from redact.vision.skeleton import LINKS
 
 STYLES: tuple[str, ...] = ("figure", "blur", "pixelate", "fill", "plate")
 #: Neutral mid grey for solid fills; the same for everyone.

@@ -1,0 +1,1 @@
+"""Deciding what to obscure and obscuring it: regions, styles, plans, review flags, the independent audit."""

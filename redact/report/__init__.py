@@ -1,0 +1,1 @@
+"""The printable HTML disclosure report."""

@@ -1,0 +1,1 @@
+"""The skeleton rows researchers receive: their format, de-identification, derived packages, exports."""
