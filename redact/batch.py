@@ -47,10 +47,10 @@ import shutil
 import tempfile
 import threading
 import time
+from collections.abc import Callable, Iterable
 from concurrent.futures import ProcessPoolExecutor, as_completed
 from dataclasses import dataclass, field, replace
 from pathlib import Path
-from typing import Callable, Iterable
 
 from redact import __version__, jsonio
 from redact.errors import InputError, OutputError, RedactError, SigningKeyError
@@ -120,14 +120,14 @@ class BatchKey:
     passphrase: bytes | None = field(default=None, repr=False)
 
     @classmethod
-    def load(cls, path: str | Path, passphrase: bytes) -> "BatchKey":
+    def load(cls, path: str | Path, passphrase: bytes) -> BatchKey:
         """Read the key file and check the passphrase opens it (so a wrong one fails before any work)."""
         from redact.provenance.signing import load_private_key
 
         signer = load_private_key(Path(path), passphrase)
         return cls(Path(path).read_bytes(), signer.key_id, bytes(passphrase))
 
-    def for_cluster(self) -> "BatchKey":
+    def for_cluster(self) -> BatchKey:
         return replace(self, passphrase=None)
 
     def signer(self) -> Signer:

@@ -11,7 +11,8 @@ from __future__ import annotations
 
 import json
 import math
-from typing import Any, Iterator
+from collections.abc import Iterator
+from typing import Any
 
 from redact.errors import PackageError
 

@@ -15,9 +15,9 @@ import shutil
 import tempfile
 import time
 from collections import deque
+from collections.abc import Callable, Iterable
 from dataclasses import asdict, dataclass, field, replace
 from pathlib import Path
-from typing import Callable, Iterable
 
 import numpy as np
 
@@ -225,7 +225,7 @@ class _Lookback:
         self.margin = margin
         self.seen: set[int] = set()
 
-    def push(self, index: int, pts: int, image: np.ndarray, tracks: Tracks | None, stats: "_Stats",
+    def push(self, index: int, pts: int, image: np.ndarray, tracks: Tracks | None, stats: _Stats,
              frame_ids: Iterable[int]):
         """Add one rendered frame; returns the frames now old enough to encode, oldest first.
 

@@ -5,7 +5,7 @@ from __future__ import annotations
 import os
 import sys
 import time
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 from pathlib import Path
 
 import click
@@ -179,7 +179,7 @@ def demo(out: Path | None, clip: Path | None, settings, as_json: bool, quiet: bo
     from redact.provenance.signing import generate_key, load_private_key
 
     source = clip or demo_clip()
-    out = out or Path("redact-demo-output") / datetime.now(timezone.utc).strftime("%Y%m%dT%H%M%SZ")
+    out = out or Path("redact-demo-output") / datetime.now(UTC).strftime("%Y%m%dT%H%M%SZ")
     keys = out / "demo-key"
     keys.mkdir(parents=True, exist_ok=True)
     private, public = keys / "demo.private.pem", keys / "demo.public.pem"
@@ -187,7 +187,7 @@ def demo(out: Path | None, clip: Path | None, settings, as_json: bool, quiet: bo
         generate_key(private, public, DEMO_PASSPHRASE.encode())
     signer = load_private_key(private, DEMO_PASSPHRASE.encode())
     disclosure = {"recipient": "demo recipient", "organisation": "demo", "purpose": "demonstration of redact",
-                  "date": datetime.now(timezone.utc).date().isoformat()}
+                  "date": datetime.now(UTC).date().isoformat()}
     result = _run(source, out, signer, settings, disclosure, as_json, quiet)
     from redact.provenance.signing import load_public_key
     from redact.report.document import build_report

@@ -11,8 +11,9 @@ from __future__ import annotations
 import queue
 import threading
 from collections import deque
+from collections.abc import Callable, Iterable, Iterator
 from concurrent.futures import ThreadPoolExecutor
-from typing import Callable, Iterable, Iterator, TypeVar
+from typing import TypeVar
 
 T = TypeVar("T")
 R = TypeVar("R")
@@ -136,7 +137,7 @@ class WriteBehind:
         if self._error is not None:
             raise self._error
 
-    def __enter__(self) -> "WriteBehind":
+    def __enter__(self) -> WriteBehind:
         return self
 
     def __exit__(self, exc_type, exc, tb) -> None:

@@ -17,11 +17,11 @@ Images are RGB uint8 [H, W, 3]. Rendering is deterministic (seeded noise, no clo
 from __future__ import annotations
 
 import math
+from collections.abc import Iterator
 from dataclasses import dataclass, field
 from fractions import Fraction
 from functools import lru_cache
 from pathlib import Path
-from typing import Iterator
 
 import numpy as np
 

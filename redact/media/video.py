@@ -23,10 +23,10 @@ import hashlib
 import heapq
 import os
 import threading
+from collections.abc import Iterator
 from dataclasses import dataclass
 from fractions import Fraction
 from pathlib import Path
-from typing import Iterator
 
 import cv2
 import numpy as np
@@ -330,7 +330,7 @@ class VideoReader:
         self._iterated = False
         self._finished = False
 
-    def __enter__(self) -> "VideoReader":
+    def __enter__(self) -> VideoReader:
         self.info = probe(self.path)
         self._container, self._stream = _open_input(self.path)
         if self._hash_file:
@@ -482,7 +482,7 @@ class VideoWriter:
         self._stream = None
         self._bsf = None
 
-    def __enter__(self) -> "VideoWriter":
+    def __enter__(self) -> VideoWriter:
         av = _av()
         opts = {"movflags": "+faststart", "fflags": "+bitexact"}
         if self.time_base.numerator == 1:

@@ -20,10 +20,11 @@ import hashlib
 import io
 import os
 import re
+from collections.abc import Callable
 from dataclasses import dataclass
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 from pathlib import Path
-from typing import Any, BinaryIO, Callable
+from typing import Any, BinaryIO
 
 from redact import jsonio
 from redact.errors import OutputError, PackageError
@@ -40,7 +41,7 @@ _HEX64 = re.compile(r"[0-9a-f]{64}")
 
 def utc_now() -> str:
     """The current UTC time in the log's format."""
-    return datetime.now(timezone.utc).strftime("%Y-%m-%dT%H:%M:%S.%fZ")
+    return datetime.now(UTC).strftime("%Y-%m-%dT%H:%M:%S.%fZ")
 
 
 def encode_entry(seq: int, prev: str, time: str, kind: str, fields: dict[str, Any]) -> bytes:

@@ -14,8 +14,8 @@ from __future__ import annotations
 
 import hashlib
 import re
+from collections.abc import Iterable, Sequence
 from dataclasses import dataclass
-from typing import Iterable, Sequence
 
 from redact import jsonio
 from redact.errors import InputError, PackageError
@@ -136,7 +136,7 @@ class FrameProof:
         return jsonio.dumps(doc) + b"\n"
 
     @classmethod
-    def from_json(cls, data: bytes, what: str = "proof") -> "FrameProof":
+    def from_json(cls, data: bytes, what: str = "proof") -> FrameProof:
         """Parse and validate a proof file; raises PackageError naming the bad field."""
         d = jsonio.loads_object(data, what, limit=1024 * 1024)
         if d.get("type") != PROOF_TYPE:

@@ -22,9 +22,10 @@ import os
 import shutil
 import stat
 import tarfile
+from collections.abc import Callable, Iterator
 from contextlib import contextmanager
 from pathlib import Path
-from typing import BinaryIO, Callable, Iterator
+from typing import BinaryIO
 
 from redact import jsonio
 from redact.errors import OutputError, PackageError

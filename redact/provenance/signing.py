@@ -14,9 +14,9 @@ import base64
 import hashlib
 import os
 import re
+from collections.abc import Iterable
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Iterable
 
 from redact import jsonio
 from redact.errors import OutputError, SigningKeyError, VerificationFailed
@@ -68,7 +68,7 @@ class PublicKey:
     key_id: str
 
     @classmethod
-    def from_raw(cls, raw: bytes) -> "PublicKey":
+    def from_raw(cls, raw: bytes) -> PublicKey:
         return cls(bytes(raw), jwk_thumbprint(raw))
 
     def verify(self, signature: bytes, data: bytes) -> bool:
@@ -107,7 +107,7 @@ class Signer:
         self.public_key = PublicKey.from_raw(raw)
 
     @classmethod
-    def from_seed(cls, seed: bytes) -> "Signer":
+    def from_seed(cls, seed: bytes) -> Signer:
         """A signer from a 32-byte RFC 8032 secret key (tests and test vectors)."""
         from cryptography.hazmat.primitives.asymmetric.ed25519 import Ed25519PrivateKey
 

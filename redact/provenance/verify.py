@@ -19,9 +19,9 @@ from __future__ import annotations
 
 import re
 import tarfile
+from collections.abc import Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Sequence
 
 from redact import jsonio
 from redact.errors import InputError, PackageError, VerificationFailed

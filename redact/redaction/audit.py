@@ -43,9 +43,9 @@ from __future__ import annotations
 
 import contextlib
 import itertools
+from collections.abc import Callable
 from dataclasses import asdict, dataclass
 from pathlib import Path
-from typing import Callable
 
 import numpy as np
 

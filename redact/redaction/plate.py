@@ -38,7 +38,7 @@ class Plate:
         object.__setattr__(self, "image", img)
         object.__setattr__(self, "valid", val)
 
-    def resized(self, height: int, width: int) -> "Plate":
+    def resized(self, height: int, width: int) -> Plate:
         """The plate at frame size. A pixel stays valid only if every plate pixel it draws from is valid."""
         h, w = self.valid.shape
         if (h, w) == (height, width):

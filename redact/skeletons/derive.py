@@ -25,10 +25,10 @@ import json
 import os
 import shutil
 import tempfile
+from collections.abc import Sequence
 from dataclasses import dataclass, replace
 from fractions import Fraction
 from pathlib import Path
-from typing import Sequence
 
 from redact import __version__, jsonio
 from redact.errors import InputError, OutputError, PackageError, VerificationFailed

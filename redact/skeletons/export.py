@@ -27,9 +27,9 @@ import hashlib
 import json
 import os
 import secrets
+from collections.abc import Iterable, Iterator, Sequence
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Iterable, Iterator, Sequence
 
 import numpy as np
 

@@ -30,9 +30,9 @@ import json
 import math
 import os
 import secrets
+from collections.abc import Iterable, Iterator
 from dataclasses import dataclass, field
 from fractions import Fraction
-from typing import Iterable, Iterator
 
 import numpy as np
 
@@ -209,7 +209,7 @@ class PrivacyOptions:
                  body_height: float | None = None, coordinates: str = "pixels", keep_position: bool = False,
                  keep_every: int = 1, target_fps: float | None = None, decimals: int | None = None,
                  noise_px: float = 0.0, new_ids: bool = False, relative_time: bool = False,
-                 seed: int | None = None) -> "PrivacyOptions":
+                 seed: int | None = None) -> PrivacyOptions:
         """Options from command-line values (drop_keypoints as "head,left_wrist,9"); raises InputError."""
         return cls(drop_keypoints=parse_keypoints(drop_keypoints or ""),
                    normalise_proportions=bool(normalise_proportions), body_height=body_height,
@@ -344,7 +344,7 @@ def encode_row_units(frame: int, pts: int | None, t: float, tracks: Tracks, stat
     pts_s = "null" if pts is None else str(int(pts))
     units_s = "" if units == "pixels" else f',"units":"{units}"'
     return (f'{{"frame":{int(frame)},"pts":{pts_s},"t":{_num(t, TIME_DECIMALS)},"status":"{status}"{units_s},'
-            f'"people":[{",".join(people)}]}}\n').encode("utf-8")
+            f'"people":[{",".join(people)}]}}\n').encode()
 
 
 @dataclass(frozen=True)

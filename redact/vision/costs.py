@@ -13,8 +13,8 @@ detection as the reference pose and its box area standing in for the object area
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass
-from typing import Callable
 
 import numpy as np
 

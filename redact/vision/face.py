@@ -93,12 +93,12 @@ class Faces:
     def __len__(self) -> int:
         return int(self.boxes.shape[0])
 
-    def select(self, index) -> "Faces":
+    def select(self, index) -> Faces:
         """A new record with the rows picked by a boolean mask or integer index array."""
         return Faces(self.boxes[index], self.scores[index], self.keypoints[index])
 
     @staticmethod
-    def empty() -> "Faces":
+    def empty() -> Faces:
         return Faces(np.zeros((0, 4)), np.zeros(0), np.zeros((0, NUM_FACE_KEYPOINTS, 2)))
 
 

@@ -184,7 +184,7 @@ class PoseEstimator:
         self.static_input = static_input
 
     @classmethod
-    def default(cls, settings: PoseSettings = PoseSettings(), threads: int | None = None) -> "PoseEstimator":
+    def default(cls, settings: PoseSettings = PoseSettings(), threads: int | None = None) -> PoseEstimator:
         """The bundled model settings.model names, hash-checked, on the CPU."""
         from redact.vision.models import get_model, open_session
 

@@ -44,12 +44,12 @@ class Poses:
     def __len__(self) -> int:
         return int(self.boxes.shape[0])
 
-    def select(self, index) -> "Poses":
+    def select(self, index) -> Poses:
         """A new record with the rows picked by a boolean mask or integer index array."""
         return Poses(self.boxes[index], self.scores[index], self.keypoints[index])
 
     @staticmethod
-    def empty() -> "Poses":
+    def empty() -> Poses:
         return Poses(np.zeros((0, 4)), np.zeros((0,)), np.zeros((0, NUM_KEYPOINTS, 3)))
 
 
@@ -92,12 +92,12 @@ class Tracks:
     def __len__(self) -> int:
         return int(self.ids.shape[0])
 
-    def select(self, index) -> "Tracks":
+    def select(self, index) -> Tracks:
         """A new record with the rows picked by a boolean mask or integer index array."""
         return Tracks(self.ids[index], self.boxes[index], self.scores[index], self.keypoints[index],
                       self.observed[index], self.misses[index], self.margin[index], self.hits[index])
 
     @staticmethod
-    def empty() -> "Tracks":
+    def empty() -> Tracks:
         return Tracks(np.zeros(0, np.int64), np.zeros((0, 4)), np.zeros(0), np.zeros((0, NUM_KEYPOINTS, 3)),
                       np.zeros(0, bool), np.zeros(0, np.int32))
