@@ -9,7 +9,7 @@ naming the field, e.g. `plan: keep_visible[0]: unknown track id 7 (the video has
 Per frame, `Plan.decide` says what to obscure: every tracked person except the kept ones
 (the requester), a kept person too wherever their box overlaps another person's box by more
 than `overlap_threshold` IoU (ids can swap when people cross, so showing a kept track there
-could show someone else), the union of the plan's polygons and boxes active on that frame
+could show someone else), the union of the plan's polygons, boxes and moving boxes active on that frame
 (a bool mask [H, W]), and whether the whole frame is obscured. Data-protection guidance allows
 answering an access request by masking other people: EDPB Guidelines 3/2019 on processing of
 personal data through video devices, v2.0, §6.1; UK ICO guidance on video surveillance
@@ -38,6 +38,7 @@ import numpy as np
 
 from redact import jsonio
 from redact.errors import InputError, PackageError, PlanError, RedactError
+from redact.redaction.moving_box import MovingBox, box_pixels, parse_moving_box
 from redact.vision.costs import iou_matrix
 from redact.vision.records import Tracks
 
@@ -55,8 +56,8 @@ MAX_LABEL = 200  # characters of a label
 MAX_NOTE = 10_000  # characters of the note
 _HEX64 = re.compile(r"[0-9a-f]{64}")
 
-_TOP_KEYS = {"version", "note", "keep_visible", "overlap_threshold", "regions", "boxes", "obscure_frames",
-             "track_sheet"}
+_TOP_KEYS = {"version", "note", "keep_visible", "overlap_threshold", "regions", "boxes", "moving_boxes",
+             "obscure_frames", "track_sheet"}
 _RANGE_KEYS = ("frames", "seconds")
 
 
@@ -221,12 +222,12 @@ class Plan:
 
     def __init__(self, *, sha256: str, size: int, name: str, note: str | None, keep_visible: tuple[int, ...],
                  overlap_threshold: float, areas: tuple[AreaEntry, ...], whole: tuple[WholeFrameEntry, ...],
-                 track_sheet: dict | None, width: int, height: int):
+                 track_sheet: dict | None, width: int, height: int, moving: tuple[MovingBox, ...] = ()):
         self.sha256, self.size, self.name, self.note = sha256, size, name, note
         self.keep_visible = keep_visible
         self.keep_ids = frozenset(keep_visible)
         self.overlap_threshold = overlap_threshold
-        self.areas, self.whole = areas, whole
+        self.areas, self.whole, self.moving = areas, whole, moving
         self.track_sheet = track_sheet
         self.width, self.height = width, height
         self._keep = np.array(sorted(self.keep_ids), np.int64)
@@ -286,6 +287,16 @@ class Plan:
                 x0, y0, x1, y1 = e.rect
                 mask[y0:y1, x0:x1] |= e.crop
                 self._hits.add(e.path, frame)
+        for m in self.moving:
+            box = m.box_at(frame)
+            if box is None:
+                continue
+            x0, y0, x1, y1 = box_pixels(box, w, h)
+            if x1 > x0 and y1 > y0:
+                if mask is None:
+                    mask = np.zeros((h, w), bool)
+                mask[y0:y1, x0:x1] = True
+                self._hits.add(m.path, frame)
 
         ids = tracks.ids
         kept = np.isin(ids, self._keep) if len(self._keep) else np.zeros(len(ids), bool)
@@ -314,6 +325,7 @@ class Plan:
             "overlap_measure": "IoU of track boxes",
             "regions": [e.source for e in self.areas if e.path.startswith("regions")],
             "boxes": [e.source for e in self.areas if e.path.startswith("boxes")],
+            "moving_boxes": [m.source for m in self.moving],
             "obscure_frames": [e.source for e in self.whole],
             "track_sheet": dict(self.track_sheet) if self.track_sheet else None,
         }
@@ -325,7 +337,7 @@ class Plan:
             out["keep_visible"][f"keep_visible[{k}]"] = {
                 "id": tid, "visible": self._hits.summary(f"keep_visible:{tid}:visible"),
                 "obscured_for_overlap": self._hits.summary(f"keep_visible:{tid}:overlap")}
-        for e in self.areas + self.whole:
+        for e in self.areas + self.whole + self.moving:
             out[e.path] = {"label": e.label, **self._hits.summary(e.path)}
         return out
 
@@ -513,12 +525,14 @@ def parse_plan(data: bytes, info, known_track_ids: Iterable[int] | None = None, 
 
     areas = [_region(v, f"regions[{i}]", info) for i, v in enumerate(_list(doc.get("regions", []), "regions"))]
     areas += [_box(v, f"boxes[{i}]", info) for i, v in enumerate(_list(doc.get("boxes", []), "boxes"))]
+    moving = [parse_moving_box(v, f"moving_boxes[{i}]", info)
+              for i, v in enumerate(_list(doc.get("moving_boxes", []), "moving_boxes"))]
     whole = [_whole(v, f"obscure_frames[{i}]", info)
              for i, v in enumerate(_list(doc.get("obscure_frames", []), "obscure_frames"))]
 
     plan = Plan(sha256=hashlib.sha256(data).hexdigest(), size=len(data), name=name, note=note,
                 keep_visible=tuple(keep), overlap_threshold=float(thr), areas=tuple(areas), whole=tuple(whole),
-                track_sheet=sheet, width=int(info.width), height=int(info.height))
+                track_sheet=sheet, width=int(info.width), height=int(info.height), moving=tuple(moving))
     if known_track_ids is not None:
         plan.check_track_ids(known_track_ids)
     return plan
