@@ -1,6 +1,7 @@
 """Ed25519, RFC 7638 key ids, DSSE and key files against RFC 8032, RFC 8037, DSSE and securesystemslib."""
 
 import base64
+import json
 import os
 
 import pytest
@@ -97,13 +98,21 @@ def _env(payload=b'{"a":1}'):
 
 
 def test_both_base64_alphabets_accepted_on_input():
+    # DSSE protocol.md: "verifiers MUST accept either" alphabet (RFC 4648 §4 standard, §5 URL-safe).
     env = _env(b"\xfb\xff" * 40)  # bytes whose base64 uses + and /
     assert "+" in env["payload"] or "/" in env["payload"]
     url = dict(env)
-    url["payload"] = base64.urlsafe_b64encode(b"\xfb\xff" * 40).decode().rstrip("=")
+    url["payload"] = base64.urlsafe_b64encode(b"\xfb\xff" * 40).decode()
     url["signatures"] = [{"keyid": env["signatures"][0]["keyid"],
                           "sig": base64.urlsafe_b64encode(base64.b64decode(env["signatures"][0]["sig"])).decode()}]
-    assert signing.verify_envelope(url, [signing.PublicKey.from_raw(TEST1_PUB)]).payload == b"\xfb\xff" * 40
+    got = signing.verify_envelope(url, [signing.PublicKey.from_raw(TEST1_PUB)])
+    assert got.payload == b"\xfb\xff" * 40
+    assert any("payload is in the URL-safe" in n for n in got.notes)
+    # RFC 4648 §3.2: padding is required unless the referring spec says otherwise; DSSE does not.
+    url["payload"] = url["payload"].rstrip("=")
+    assert url["payload"] != base64.urlsafe_b64encode(b"\xfb\xff" * 40).decode()
+    with pytest.raises(VerificationFailed, match="padding missing"):
+        signing.verify_envelope(url, [signing.PublicKey.from_raw(TEST1_PUB)])
     for bad in ["ab+c-", "a", "ab$c", "===="]:
         with pytest.raises(ValueError):
             signing.b64decode_any(bad)
@@ -121,7 +130,7 @@ def test_envelope_findings():
     with pytest.raises(VerificationFailed, match="keyid hint"):
         signing.verify_envelope(env, [key])
     env = _env(); env["signatures"].append(dict(env["signatures"][0]))
-    with pytest.raises(VerificationFailed, match="expected exactly 1"):
+    with pytest.raises(VerificationFailed, match="second signature by key"):  # a key signs once (our policy)
         signing.verify_envelope(env, [key])
     other = signing.Signer(Ed25519PrivateKey.generate()).public_key
     with pytest.raises(VerificationFailed, match="does not verify with any trusted key"):
@@ -202,3 +211,197 @@ def test_unencrypted_or_foreign_keys_refused(tmp_path):
         signing.load_public_key(junk)
     with pytest.raises(SigningKeyError):
         signing.load_public_key(tmp_path / "missing.pem")
+
+
+# --- the envelope rule: RFC 4648 base64, DSSE fields, keyid hints, several signatures ----------
+
+# RFC 4648 §10 test vectors (BASE64).
+RFC4648_VECTORS = [(b"", ""), (b"f", "Zg=="), (b"fo", "Zm8="), (b"foo", "Zm9v"), (b"foob", "Zm9vYg=="),
+                   (b"fooba", "Zm9vYmE="), (b"foobar", "Zm9vYmFy")]
+TEST2_SEED = bytes.fromhex(RFC8032[1][0])
+TEST2_PUB = bytes.fromhex(RFC8032[1][1])
+HELLO_TYPE = "http://example.com/HelloWorld"  # DSSE protocol.md test vector
+
+
+@pytest.mark.parametrize("data,text", RFC4648_VECTORS)
+def test_rfc4648_section10_vectors(data, text):
+    assert signing.b64encode_std(data) == text
+    assert signing.b64decode_any(text) == data
+
+
+@pytest.mark.parametrize("text,rule", [
+    ("Zh==", "§3.5"),      # "f" with a non-zero unused bit: RFC 4648 §3.5 lets decoders refuse it
+    ("Zm9=", "§3.5"),      # "fo" likewise (one '=': two unused bits)
+    ("Zg", "§3.2"),        # padding removed
+    ("Zg=", "§3.2"),
+    ("Zm9v\n", "§3.3"),    # a line feed: non-alphabet characters must be refused (§3.3)
+    ("Zm 9v", "§3.3"),
+    ("Zm9v+-==", "§4, §5"),  # two alphabets in one string
+])
+def test_rfc4648_non_canonical_refused_naming_the_rule(text, rule):
+    with pytest.raises(ValueError, match=rule):
+        signing.b64decode_any(text)
+
+
+def test_dsse_protocol_example_envelope():
+    # DSSE protocol.md "Test Vectors": the published envelope (no keyid) and its ECDSA P-256 key. Our
+    # decoding and PAE must give exactly the bytes the published signature covers.
+    from cryptography.hazmat.primitives import hashes
+    from cryptography.hazmat.primitives.asymmetric.utils import encode_dss_signature
+
+    published = ('{"payload": "aGVsbG8gd29ybGQ=",\n "payloadType": "http://example.com/HelloWorld",\n'
+                 ' "signatures": [{"sig": "A3JqsQGtVsJ2O2xqrI5IcnXip5GToJ3F+FnZ+O88SjtR6rDAajabZKciJTfUiHqJPcIAriE'
+                 'GAHTVeCUjW2JIZA=="}]}')
+    parsed = signing.parse_envelope(json.loads(published))
+    assert parsed.payload == b"hello world" and parsed.payload_type == HELLO_TYPE
+    assert [(s.index, s.keyid, len(s.sig)) for s in parsed.signatures] == [(0, "", 64)]
+    assert any("no keyid hint" in n for n in parsed.notes)
+    x = 46950820868899156662930047687818585632848591499744589407958293238635476079160
+    y = 5640078356564379163099075877009565129882514886557779369047442380624545832820
+    pub = ec.EllipticCurvePublicNumbers(x, y, ec.SECP256R1()).public_key()
+    sig = parsed.signatures[0].sig
+    der = encode_dss_signature(int.from_bytes(sig[:32], "big"), int.from_bytes(sig[32:], "big"))
+    pub.verify(der, signing.pae(parsed.payload_type, parsed.payload), ec.ECDSA(hashes.SHA256()))
+    # An Ed25519 verifier refuses it with the ordinary finding: no trusted key verifies it.
+    with pytest.raises(VerificationFailed, match="keyid hint none.*does not verify with any trusted key"):
+        signing.verify_envelope(json.loads(published), [signing.PublicKey.from_raw(TEST1_PUB)], HELLO_TYPE)
+
+
+def _two_signed(first=TEST1_SEED, second=TEST2_SEED):
+    env = signing.sign_envelope(b"hello world", HELLO_TYPE, signing.Signer.from_seed(first))
+    first_v = signing.verify_envelope(env, [signing.Signer.from_seed(first).public_key], HELLO_TYPE)
+    return signing.add_signature(env, first_v, signing.Signer.from_seed(second))
+
+
+def test_two_signatures_verify_and_name_both_signers():
+    # DSSE envelope.md "Multiple signatures"; keys are RFC 8032 §7.1 TEST 1 and TEST 2.
+    a, b = signing.PublicKey.from_raw(TEST1_PUB, "a.pem"), signing.PublicKey.from_raw(TEST2_PUB, "b.pem")
+    env = _two_signed()
+    # The first signature is still the derived CHECKS.md value: countersigning kept it byte for byte.
+    assert env["signatures"][0]["sig"] == ("4DHX3Zn4qpBKvEj7maE8O9u9bjXEnPLLnyXVUJ2PXJR8DSLcL3QDpFvfJOj3pB/SPHsl6Jg4bo"
+                                           "xsMb6KvuYABw==")
+    assert env["payload"] == base64.b64encode(b"hello world").decode()
+    got = signing.verify_envelope(env, [b, a], HELLO_TYPE)
+    assert [(s.index, s.key_id, s.key.label) for s in got.signers] == [(0, a.key_id, "a.pem"), (1, b.key_id, "b.pem")]
+    assert got.key_id == a.key_id and got.payload == b"hello world" and got.notes == ()
+    assert signing.verify_envelope(env, [a, b], HELLO_TYPE, required=[b]).signer_ids == (a.key_id, b.key_id)
+
+
+def test_second_signature_tampered_or_untrusted():
+    a, b = signing.PublicKey.from_raw(TEST1_PUB), signing.PublicKey.from_raw(TEST2_PUB)
+    env = _two_signed()
+    bad = json.loads(json.dumps(env))
+    raw = bytearray(base64.b64decode(bad["signatures"][1]["sig"]))
+    raw[5] ^= 0x01
+    bad["signatures"][1]["sig"] = base64.b64encode(bytes(raw)).decode()
+    with pytest.raises(VerificationFailed) as e:
+        signing.verify_envelope(bad, [a, b], HELLO_TYPE)
+    assert e.value.findings == [f for f in e.value.findings if "signature 1 " in f] and len(e.value.findings) == 1
+    # Our policy: a signature no trusted key verifies is a finding naming its hint and what to do.
+    with pytest.raises(VerificationFailed) as e:
+        signing.verify_envelope(env, [a], HELLO_TYPE)
+    assert len(e.value.findings) == 1
+    assert f"signature 1 (keyid hint {b.key_id!r})" in e.value.findings[0] and "--trusted-key" in e.value.findings[0]
+
+
+def test_required_signer_missing():
+    # DSSE signatures are independent (envelope.md), so removing one is not detectable by the others:
+    # a verifier who expects a countersignature must ask for it.
+    a, b = signing.PublicKey.from_raw(TEST1_PUB), signing.PublicKey.from_raw(TEST2_PUB)
+    env = _two_signed()
+    del env["signatures"][1]
+    assert signing.verify_envelope(env, [a, b], HELLO_TYPE).signer_ids == (a.key_id,)
+    with pytest.raises(VerificationFailed, match=f"required signer {b.key_id} has not signed"):
+        signing.verify_envelope(env, [a], HELLO_TYPE, required=[b])
+
+
+def test_add_signature_refuses_a_second_signature_by_the_same_key_and_a_foreign_envelope():
+    a = signing.Signer.from_seed(TEST1_SEED)
+    env = signing.sign_envelope(b"hello world", HELLO_TYPE, a)
+    v = signing.verify_envelope(env, [a.public_key], HELLO_TYPE)
+    with pytest.raises(OutputError, match="already signed"):
+        signing.add_signature(env, v, a)
+    other = signing.sign_envelope(b"hello there", HELLO_TYPE, a)
+    with pytest.raises(VerificationFailed, match="not the envelope that was verified"):
+        signing.add_signature(other, v, signing.Signer.from_seed(TEST2_SEED))
+
+
+@pytest.mark.parametrize("edit,expect", [
+    ("keyid removed", None),   # DSSE envelope.md: keyid OPTIONAL, unset = set-but-empty
+    ("keyid empty", None),
+    ("keyid null", "keyid is null"),   # envelope.proto: keyid is a string
+    ("keyid number", "keyid is not a string"),
+    ("keyid other", "keyid hint 'someone-else' does not name the key"),
+    ("envelope field added", "unexpected field(s) comment"),   # stricter than envelope.md (documented)
+    ("signature field added", "unexpected field(s) comment"),
+])
+def test_keyid_and_field_rules(edit, expect):
+    key = signing.PublicKey.from_raw(TEST1_PUB)
+    env = signing.sign_envelope(b"hello world", HELLO_TYPE, signing.Signer.from_seed(TEST1_SEED))
+    sig = env["signatures"][0]
+    if edit == "keyid removed":
+        del sig["keyid"]
+    elif edit == "keyid empty":
+        sig["keyid"] = ""
+    elif edit == "keyid null":
+        sig["keyid"] = None
+    elif edit == "keyid number":
+        sig["keyid"] = 7
+    elif edit == "keyid other":
+        sig["keyid"] = "someone-else"
+    elif edit == "envelope field added":
+        env["comment"] = "approved"
+    else:
+        sig["comment"] = "approved"
+    if expect is None:
+        got = signing.verify_envelope(env, [key], HELLO_TYPE)
+        assert got.signer_ids == (key.key_id,) and got.signers[0].keyid_hint == ""
+        assert any("no keyid hint" in n for n in got.notes)
+    else:
+        with pytest.raises(VerificationFailed) as e:
+            signing.verify_envelope(env, [key], HELLO_TYPE)
+        assert any(expect in f for f in e.value.findings), e.value.findings
+
+
+def _sslib_signer(seed: bytes, keyid: str | None):
+    from securesystemslib.signer import CryptoSigner, SSlibKey
+
+    priv = Ed25519PrivateKey.from_private_bytes(seed)
+    key = SSlibKey.from_crypto(priv.public_key()) if keyid is None else SSlibKey.from_crypto(priv.public_key(), keyid=keyid)
+    return CryptoSigner(priv, key), key
+
+
+def test_securesystemslib_verifies_our_countersigned_envelope():
+    # Outside implementation: securesystemslib's DSSE Envelope, threshold 2 (both signatures).
+    from securesystemslib.dsse import Envelope
+
+    a, b = signing.Signer.from_seed(TEST1_SEED), signing.Signer.from_seed(TEST2_SEED)
+    _, ka = _sslib_signer(TEST1_SEED, a.key_id)
+    _, kb = _sslib_signer(TEST2_SEED, b.key_id)
+    theirs = Envelope.from_dict(json.loads(json.dumps(_two_signed())))
+    assert set(theirs.verify([ka, kb], 2)) == {a.key_id, b.key_id}
+
+
+def test_we_verify_a_two_signature_securesystemslib_envelope():
+    from securesystemslib.dsse import Envelope
+
+    a, b = signing.Signer.from_seed(TEST1_SEED), signing.Signer.from_seed(TEST2_SEED)
+    env = Envelope(b'{"hello":"world"}', signing.PAYLOAD_TYPE, {})
+    env.sign(_sslib_signer(TEST1_SEED, a.key_id)[0])
+    env.sign(_sslib_signer(TEST2_SEED, b.key_id)[0])
+    got = signing.verify_envelope(env.to_dict(), [a.public_key, b.public_key])
+    assert got.signer_ids == (a.key_id, b.key_id) and got.payload == b'{"hello":"world"}'
+
+
+def test_securesystemslib_default_keyid_is_refused_naming_the_rule():
+    # securesystemslib's own keyid (a hex SHA-256 of its key JSON) is a hint in another scheme: DSSE
+    # leaves keyids to signer and verifier, and ours are RFC 7638 thumbprints.
+    from securesystemslib.dsse import Envelope
+
+    signer, key = _sslib_signer(TEST1_SEED, None)
+    env = Envelope(b'{"hello":"world"}', signing.PAYLOAD_TYPE, {})
+    env.sign(signer)
+    with pytest.raises(VerificationFailed) as e:
+        signing.verify_envelope(env.to_dict(), [signing.PublicKey.from_raw(TEST1_PUB)])
+    assert e.value.findings == [f"signature: signature 0 keyid hint {key.keyid!r} does not name the key that "
+                                f"verified it ({signing.jwk_thumbprint(TEST1_PUB)}); keyids here are RFC 7638 thumbprints"]

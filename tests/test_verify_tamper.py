@@ -296,6 +296,165 @@ def test_signed_log_head_changed(base, tmp_path):
     assert has(findings(pkg, base["key"]), "log.jsonl", "signed log head")
 
 
+# --- the envelope rule (issue 13, item 3): named edits of envelope.json, folder and .tar alike ----
+# DSSE v1.0.2 protocol.md / envelope.md and RFC 4648. Each edit keeps the decoded payload and
+# signature bytes (or changes only unsigned parts): what the rule allows verifies, with a note; what
+# it forbids is refused with a finding that names the rule.
+
+B64 = "ABCDEFGHIJKLMNOPQRSTUVWXYZabcdefghijklmnopqrstuvwxyz0123456789+/"
+
+
+def _flip_unused_bits(text: str) -> str:
+    """Set the lowest unused bit of the last character before the padding (RFC 4648 §3.5)."""
+    body = text.rstrip("=")
+    assert len(text) - len(body) in (1, 2), "the value has no padding, so it has no unused bits"
+    return body[:-1] + B64[B64.index(body[-1]) ^ 1] + text[len(body):]
+
+
+def _url_safe(text: str) -> str:
+    return text.replace("+", "-").replace("/", "_")
+
+
+def _mix_alphabets(text: str) -> str:
+    assert text.count("+") + text.count("/") >= 2, "needs two characters of the standard alphabet to mix"
+    i = min(i for i in (text.find("+"), text.find("/")) if i >= 0)
+    return text[:i] + _url_safe(text[i]) + text[i + 1:]
+
+
+def _sig(env):
+    return env["signatures"][0]
+
+
+def _edit(fn):
+    """An edit of the envelope's values, written back in this tool's JSON layout."""
+    def apply(data: bytes) -> bytes:
+        env = json.loads(data)
+        fn(env)
+        return signing.envelope_bytes(env)
+    return apply
+
+
+ENVELOPE_EDITS = {
+    # forbidden: refused, the finding names the rule
+    "payload-unused-bits": (_edit(lambda e: e.update(payload=_flip_unused_bits(e["payload"]))), "RFC 4648 §3.5"),
+    "sig-unused-bits": (_edit(lambda e: _sig(e).update(sig=_flip_unused_bits(_sig(e)["sig"]))), "RFC 4648 §3.5"),
+    "payload-padding-removed": (_edit(lambda e: e.update(payload=e["payload"].rstrip("="))), "RFC 4648 §3.2"),
+    "sig-padding-removed": (_edit(lambda e: _sig(e).update(sig=_sig(e)["sig"].rstrip("="))), "RFC 4648 §3.2"),
+    "sig-alphabets-mixed": (_edit(lambda e: _sig(e).update(sig=_mix_alphabets(_sig(e)["sig"]))), "RFC 4648 §4, §5"),
+    "keyid-null": (_edit(lambda e: _sig(e).update(keyid=None)), "keyid is null"),
+    "keyid-other-scheme": (_edit(lambda e: _sig(e).update(keyid="ab" * 32)), "keyids here are RFC 7638 thumbprints"),
+    "field-added": (_edit(lambda e: e.update(reviewedBy="someone")), "unexpected field(s) reviewedBy"),
+    "signature-field-added": (_edit(lambda e: _sig(e).update(note="x")), "unexpected field(s) note"),
+    "signature-repeated": (_edit(lambda e: e["signatures"].append(dict(_sig(e)))), "a key signs an envelope once"),
+    "trailing-space": (lambda d: d.rstrip(b"\n") + b" \n", "not byte-identical"),
+    "final-newline-removed": (lambda d: d.rstrip(b"\n"), "not byte-identical"),
+    # allowed by DSSE (verifiers MUST accept): verifies, and a note says what was chosen
+    "url-safe-alphabet": (_edit(lambda e: (e.update(payload=_url_safe(e["payload"])),
+                                           _sig(e).update(sig=_url_safe(_sig(e)["sig"])))), None),
+    "keyid-removed": (_edit(lambda e: _sig(e).pop("keyid")), None),
+    "keyid-empty": (_edit(lambda e: _sig(e).update(keyid="")), None),
+}
+ALLOWED_NOTES = {"url-safe-alphabet": "URL-safe base64 alphabet", "keyid-removed": "no keyid hint",
+                 "keyid-empty": "no keyid hint"}
+
+
+def _original_envelope(base, kind) -> bytes:
+    if kind == "dir":
+        return (base["dir"]["path"] / "envelope.json").read_bytes()
+    return dict((m.name, data) for m, data in _members(base))["envelope.json"]
+
+
+def _with_envelope(base, kind, tmp_path, data: bytes) -> Path:
+    """A copy of the clean package whose envelope.json is `data`; a .tar is rebuilt in this tool's
+    canonical layout, so only the envelope rule can refuse it."""
+    from redact.provenance.package import _write_tar
+
+    tmp_path.mkdir(parents=True, exist_ok=True)
+    if kind == "dir":
+        pkg = copy_dir(base, tmp_path)
+        (pkg / "envelope.json").write_bytes(data)
+        return pkg
+    files = {m.name: content for m, content in _members(base)}
+    files["envelope.json"] = data
+    out = tmp_path / "pkg.tar"
+    with open(out, "wb") as f:
+        _write_tar(f, [(n, len(files[n]), (lambda n=n: io.BytesIO(files[n]))) for n in sorted(files)])
+    return out
+
+
+@pytest.mark.parametrize("kind", ["dir", "tar"])
+@pytest.mark.parametrize("name", sorted(ENVELOPE_EDITS))
+def test_envelope_encodings(base, tmp_path, name, kind):
+    original = _original_envelope(base, kind)
+    edit, rule = ENVELOPE_EDITS[name]
+    data = edit(original)
+    assert data != original  # the fixture really changes the file
+    pkg = _with_envelope(base, kind, tmp_path, data)
+    if rule is None:
+        v = verify_package(pkg, [base["key"]])
+        assert v.payload == base[kind]["payload"] and v.signers[0].key_id == base["signer"].key_id
+        assert has(v.notes, "envelope.json", ALLOWED_NOTES[name]), v.notes
+    else:
+        assert has(findings(pkg, base["key"]), rule)
+
+
+def test_clean_package_has_no_notes(base):
+    # The guard for the test above: our own envelope makes none of the free choices.
+    assert verify_package(base["dir"]["path"], [base["key"]]).notes == ()
+    assert verify_package(base["tar"]["path"], [base["key"]]).notes == ()
+
+
+def test_rebuilt_tar_helper_is_faithful(base, tmp_path):
+    # Guard: the .tar rebuilt around an unchanged envelope is byte-identical to the one we wrote.
+    same = _with_envelope(base, "tar", tmp_path, _original_envelope(base, "tar"))
+    assert same.read_bytes() == base["tar"]["path"].read_bytes()
+
+
+def test_securesystemslib_refuses_what_we_refuse_for_padding(base):
+    # Outside check: securesystemslib (and the DSSE reference implementation it follows) decodes with
+    # base64 validate=True, which refuses a value without its padding too.
+    import binascii
+
+    from securesystemslib.dsse import Envelope
+
+    env = json.loads((base["dir"]["path"] / "envelope.json").read_bytes())
+    env["payload"] = env["payload"].rstrip("=")
+    with pytest.raises(binascii.Error):
+        Envelope.from_dict(env)
+
+
+def _sslib_resigned(base, kind, keyid):
+    from cryptography.hazmat.primitives.asymmetric.ed25519 import Ed25519PrivateKey
+    from securesystemslib.dsse import Envelope
+    from securesystemslib.signer import CryptoSigner, SSlibKey
+    from test_package import SEED
+
+    priv = Ed25519PrivateKey.from_private_bytes(SEED)
+    key = SSlibKey.from_crypto(priv.public_key(), keyid=keyid) if keyid else SSlibKey.from_crypto(priv.public_key())
+    env = Envelope(base[kind]["payload"], signing.PAYLOAD_TYPE, {})
+    env.sign(CryptoSigner(priv, key))
+    return env.to_dict(), key
+
+
+@pytest.mark.parametrize("kind", ["dir", "tar"])
+def test_securesystemslib_resigned_package_verifies(base, tmp_path, kind):
+    # securesystemslib (PyPI) re-signs our exact payload bytes with the same key and our keyid scheme.
+    env, _ = _sslib_resigned(base, kind, base["signer"].key_id)
+    pkg = _with_envelope(base, kind, tmp_path, signing.envelope_bytes(env))
+    v = verify_package(pkg, [base["key"]])
+    assert v.payload == base[kind]["payload"] and v.key_id == base["signer"].key_id
+
+
+def test_securesystemslib_envelope_refused_naming_the_rule(base, tmp_path):
+    # Its own keyid scheme, or another JSON layout, are refused with findings that name our rule.
+    env, key = _sslib_resigned(base, "dir", None)
+    fs = findings(_with_envelope(base, "dir", tmp_path / "a", signing.envelope_bytes(env)), base["key"])
+    assert has(fs, f"keyid hint {key.keyid!r}", "RFC 7638")
+    env, _ = _sslib_resigned(base, "dir", base["signer"].key_id)
+    fs = findings(_with_envelope(base, "dir", tmp_path / "b", json.dumps(env).encode()), base["key"])
+    assert fs == [f for f in fs if "not byte-identical" in f] and len(fs) == 1
+
+
 # --- links and archives -------------------------------------------------------------------------
 
 def test_symlink_in_package(base, tmp_path):

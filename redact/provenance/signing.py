@@ -2,10 +2,36 @@
 
 - Keys: private keys are PKCS#8 PEM encrypted with a passphrase; public keys are
   SubjectPublicKeyInfo PEM; the key id is the RFC 7638 JWK thumbprint of the RFC 8037 OKP JWK.
-- DSSE v1 (secure-systems-lab/dsse protocol.md): the signature covers
+- DSSE v1.0.2 (secure-systems-lab/dsse protocol.md, envelope.md): each signature covers
   PAE(type, body) = "DSSEv1" SP LEN(type) SP type SP LEN(body) SP body, LEN in decimal bytes.
-  The envelope's keyid is an unauthenticated hint. Base64 in either alphabet is accepted on input.
+  Only payloadType and the payload bytes are signed; envelope.json's own bytes are not (they
+  cannot be: adding a countersignature changes them), so the envelope rule below says exactly
+  which encodings are accepted.
 - Signatures are checked over the exact payload bytes before anything parses them.
+
+The envelope rule (what `verify_envelope` accepts):
+- base64 (RFC 4648, which DSSE names): the standard (§4) or the URL-safe (§5) alphabet, as
+  DSSE protocol.md says verifiers MUST accept either, one alphabet per string; padded (§3.2:
+  padding is required unless the referring specification says otherwise, and DSSE does not);
+  canonical (§3.5: a conforming encoder sets the unused low bits of the last character to zero,
+  and a decoder MAY refuse otherwise; we do); no whitespace or other characters (§3.3).
+- keyid is an unauthenticated hint (protocol.md); absent or "" both mean "no hint" (envelope.md:
+  an unset field is the same as set-but-empty); null or a non-string is refused (envelope.proto
+  types it as a string). A hint that is given must be the RFC 7638 thumbprint of the trusted
+  key that verifies that signature: DSSE leaves the keyid format to signer and verifier, and
+  this is ours (what `redact keygen` prints).
+- Several signatures are allowed (envelope.md: equivalent to separate envelopes). Our policy,
+  which DSSE leaves to the application: every signature must verify under a trusted key, and
+  a key signs once. A signature that does not verify is a finding, never silently skipped,
+  because a recipient shown an envelope with an unchecked signature would take it for an
+  endorsement.
+- Only the fields DSSE defines (payload, payloadType, signatures; keyid, sig). This is
+  stricter than envelope.md, which asks consumers to ignore unknown fields: nothing signs them,
+  and a package must not carry unsigned statements beside the signed one.
+What stays free, and is therefore not evidence of anything: the alphabet of each base64 string,
+whether a keyid hint is present, the order of the signatures, and which signatures are present
+(DSSE signatures are independent, so one can be removed: a recipient who expects a particular
+signer says so with `required`). The result's `notes` name the free choices an envelope made.
 """
 
 from __future__ import annotations
@@ -15,7 +41,7 @@ import hashlib
 import os
 import re
 from collections.abc import Iterable
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 
 from redact import jsonio
@@ -25,7 +51,10 @@ PAYLOAD_TYPE = "application/vnd.in-toto+json"  # in-toto attestation spec v1, DS
 STATEMENT_TYPE = "https://in-toto.io/Statement/v1"
 SIGNATURE_BYTES = 64  # RFC 8032 §5.1.6
 KEY_FILE_LIMIT = 64 * 1024  # bytes; a PEM key is a few hundred bytes (common practice)
-_B64 = re.compile(r"[A-Za-z0-9+/_-]*={0,2}")
+ENVELOPE_FIELDS = ("payload", "payloadType", "signatures")  # DSSE envelope.md
+SIGNATURE_FIELDS = ("keyid", "sig")  # DSSE envelope.md
+_STANDARD = re.compile(r"[A-Za-z0-9+/]*={0,2}")  # RFC 4648 §4
+_URLSAFE = re.compile(r"[A-Za-z0-9_-]*={0,2}")  # RFC 4648 §5
 
 
 def b64url_nopad(data: bytes) -> str:
@@ -33,17 +62,33 @@ def b64url_nopad(data: bytes) -> str:
     return base64.urlsafe_b64encode(data).rstrip(b"=").decode("ascii")
 
 
+def base64_alphabet(text: str) -> str:
+    """"standard" or "url-safe": which RFC 4648 alphabet a valid string uses (standard when both fit)."""
+    return "standard" if _STANDARD.fullmatch(text) else "url-safe"
+
+
 def b64decode_any(text: str) -> bytes:
-    """Decode base64 in the standard or the URL-safe alphabet, padded or not; ValueError if invalid."""
-    if not isinstance(text, str) or not _B64.fullmatch(text):
-        raise ValueError("not base64")
-    if ("-" in text or "_" in text) and ("+" in text or "/" in text):
-        raise ValueError("base64 mixes the standard and URL-safe alphabets")
-    body = text.rstrip("=")
-    if len(body) % 4 == 1:
-        raise ValueError("base64 of impossible length")
-    body = body.replace("-", "+").replace("_", "/")
-    return base64.b64decode(body + "=" * (-len(body) % 4), validate=True)
+    """Decode RFC 4648 base64 in the standard or the URL-safe alphabet, padded and canonical.
+
+    ValueError names the rule broken: characters outside the alphabets (§3.3), both alphabets in
+    one string, missing or wrong padding (§3.2), non-zero unused bits (§3.5). Exactly one string
+    decodes to given bytes in each alphabet, so these bytes cannot be re-encoded unnoticed except
+    by switching the alphabet, which DSSE requires verifiers to accept.
+    """
+    if not isinstance(text, str):
+        raise ValueError("not a string")
+    standard, urlsafe = _STANDARD.fullmatch(text), _URLSAFE.fullmatch(text)
+    if not standard and not urlsafe:
+        if re.fullmatch(r"[A-Za-z0-9+/_-]*={0,2}", text):
+            raise ValueError("mixes the standard and URL-safe alphabets (RFC 4648 §4, §5)")
+        raise ValueError("characters outside the base64 alphabet, or '=' before the end (RFC 4648 §3.3)")
+    if len(text) % 4:
+        raise ValueError("padding missing or length not a multiple of 4 (RFC 4648 §3.2 requires '=' padding)")
+    std = text if standard else text.replace("-", "+").replace("_", "/")
+    data = base64.b64decode(std, validate=True)
+    if base64.b64encode(data).decode("ascii") != std:
+        raise ValueError("non-zero unused bits before the padding: not the canonical encoding (RFC 4648 §3.5)")
+    return data
 
 
 def b64encode_std(data: bytes) -> str:
@@ -66,10 +111,16 @@ class PublicKey:
 
     raw: bytes
     key_id: str
+    label: str = field(default="", compare=False)  # where it came from (a file name), for messages
 
     @classmethod
-    def from_raw(cls, raw: bytes) -> PublicKey:
-        return cls(bytes(raw), jwk_thumbprint(raw))
+    def from_raw(cls, raw: bytes, label: str = "") -> PublicKey:
+        return cls(bytes(raw), jwk_thumbprint(raw), label)
+
+    @property
+    def name(self) -> str:
+        """The key id, with its file name when known: how messages name a signer."""
+        return f"{self.key_id} ({self.label})" if self.label else self.key_id
 
     def verify(self, signature: bytes, data: bytes) -> bool:
         """True when `signature` is a valid Ed25519 signature of `data` (RFC 8032 §5.1.7)."""
@@ -220,7 +271,8 @@ def load_public_key(path: Path) -> PublicKey:
         raise SigningKeyError(f"{path}: not a PEM public key") from None
     if not isinstance(key, Ed25519PublicKey):
         raise SigningKeyError(f"{path}: not an Ed25519 public key")
-    return PublicKey.from_raw(key.public_bytes(serialization.Encoding.Raw, serialization.PublicFormat.Raw))
+    return PublicKey.from_raw(key.public_bytes(serialization.Encoding.Raw, serialization.PublicFormat.Raw),
+                              label=Path(path).name)
 
 
 def pae(payload_type: str, payload: bytes) -> bytes:
@@ -231,11 +283,14 @@ def pae(payload_type: str, payload: bytes) -> bytes:
     return b"DSSEv1 %d %b %d %b" % (len(t), t, len(payload), payload)
 
 
+def _signature_entry(payload: bytes, payload_type: str, signer: Signer) -> dict:
+    return {"keyid": signer.key_id, "sig": b64encode_std(signer.sign(pae(payload_type, payload)))}
+
+
 def sign_envelope(payload: bytes, payload_type: str, signer: Signer) -> dict:
     """A DSSE envelope with one Ed25519 signature over PAE(payload_type, payload)."""
-    sig = signer.sign(pae(payload_type, payload))
     return {"payload": b64encode_std(payload), "payloadType": payload_type,
-            "signatures": [{"keyid": signer.key_id, "sig": b64encode_std(sig)}]}
+            "signatures": [_signature_entry(payload, payload_type, signer)]}
 
 
 def envelope_bytes(envelope: dict) -> bytes:
@@ -244,81 +299,203 @@ def envelope_bytes(envelope: dict) -> bytes:
 
 
 @dataclass(frozen=True)
-class VerifiedEnvelope:
-    """A DSSE envelope whose signature checked: the exact payload bytes and the key that signed."""
+class EnvelopeSignature:
+    """One entry of `signatures`, decoded: `keyid` is "" when the hint is unset (DSSE envelope.md)."""
+
+    index: int
+    keyid: str
+    sig: bytes
+
+
+@dataclass(frozen=True)
+class ParsedEnvelope:
+    """A DSSE JSON envelope decoded under the envelope rule, nothing verified yet.
+
+    `notes` name the free choices it made that this tool does not make (the URL-safe alphabet,
+    a signature without a keyid hint): accepted, and not signed.
+    """
 
     payload: bytes
     payload_type: str
-    key_id: str
+    signatures: tuple[EnvelopeSignature, ...]
+    notes: tuple[str, ...] = ()
 
 
-def verify_envelope(envelope: dict, trusted: Iterable[PublicKey], payload_type: str | None = PAYLOAD_TYPE) -> VerifiedEnvelope:
-    """Check a DSSE envelope against trusted keys; raises VerificationFailed listing every problem.
+def parse_envelope(envelope: object) -> ParsedEnvelope:
+    """Decode a DSSE JSON envelope (DSSE envelope.md parsing rules, RFC 4648 base64).
 
-    Exactly one signature is expected (the format we write). The keyid hint is not trusted: every
-    trusted key is tried, and a hint that names a different key than the one that verified is a
-    finding. Nothing of the payload is parsed here.
+    Raises VerificationFailed listing every field that breaks the envelope rule (module docstring).
+    The payload is decoded, never parsed.
     """
-    keys = list(trusted)
-    if not keys:
-        raise VerificationFailed(["no trusted public key was given; an empty key list never verifies"])
-    findings: list[str] = []
     if not isinstance(envelope, dict):
         raise VerificationFailed(["envelope: not a JSON object"])
-    extra = sorted(set(envelope) - {"payload", "payloadType", "signatures"})
-    if extra:
-        findings.append(f"envelope: unexpected field(s) {', '.join(extra)}")
+    findings: list[str] = []
+    notes: list[str] = []
+    unknown = sorted(set(envelope) - set(ENVELOPE_FIELDS))
+    if unknown:
+        findings.append(f"envelope: unexpected field(s) {', '.join(unknown)} (only the DSSE fields are allowed: "
+                        "nothing signs any other)")
     ptype = envelope.get("payloadType")
     if not isinstance(ptype, str) or not ptype.isascii():
         findings.append("envelope: payloadType is missing or not an ASCII string")
-        ptype = None
-    elif payload_type is not None and ptype != payload_type:
-        findings.append(f"envelope: payloadType is {ptype!r}, expected {payload_type!r}")
-    try:
-        payload = b64decode_any(envelope.get("payload"))
-    except ValueError as e:
-        findings.append(f"envelope: payload is not valid base64 ({e})")
-        payload = None
+    payload = None
+    if "payload" not in envelope:
+        findings.append("envelope: payload is missing (DSSE envelope.md: REQUIRED)")
+    else:
+        try:
+            payload = b64decode_any(envelope["payload"])
+        except ValueError as e:
+            findings.append(f"envelope: payload is not valid base64 ({e})")
+        else:
+            if base64_alphabet(envelope["payload"]) != "standard":
+                notes.append("envelope: payload is in the URL-safe base64 alphabet (accepted, DSSE protocol.md)")
     sigs = envelope.get("signatures")
     if not isinstance(sigs, list) or not sigs:
         findings.append("envelope: signatures must be a non-empty list")
         sigs = []
-    elif len(sigs) != 1:
-        findings.append(f"envelope: {len(sigs)} signatures, expected exactly 1")
-    verified_by: PublicKey | None = None
+    parsed: list[EnvelopeSignature] = []
     for i, s in enumerate(sigs):
-        if not isinstance(s, dict) or set(s) - {"keyid", "sig"} or not isinstance(s.get("sig"), str):
-            findings.append(f"envelope: signature {i} is malformed (expected {{keyid, sig}})")
+        if not isinstance(s, dict) or not isinstance(s.get("sig"), str):
+            findings.append(f"envelope: signature {i} is malformed (expected an object with a base64 sig)")
             continue
-        hint = s.get("keyid")
-        if hint is not None and not isinstance(hint, str):
-            findings.append(f"envelope: signature {i} keyid is not a string")
-            hint = None
+        extra = sorted(set(s) - set(SIGNATURE_FIELDS))
+        if extra:
+            findings.append(f"envelope: signature {i} has unexpected field(s) {', '.join(extra)} "
+                            "(only keyid and sig are allowed: nothing signs any other)")
+            continue
+        hint = s.get("keyid", "")
+        if not isinstance(hint, str):
+            findings.append(f"envelope: signature {i} keyid is {'null' if hint is None else 'not a string'} "
+                            "(DSSE: a string, or left out when there is no hint)")
+            continue
+        if not hint:
+            notes.append(f"envelope: signature {i} has no keyid hint (accepted, DSSE envelope.md)")
         try:
             sig = b64decode_any(s["sig"])
         except ValueError as e:
             findings.append(f"envelope: signature {i} is not valid base64 ({e})")
             continue
+        if base64_alphabet(s["sig"]) != "standard":
+            notes.append(f"envelope: signature {i} is in the URL-safe base64 alphabet (accepted, DSSE protocol.md)")
         if len(sig) != SIGNATURE_BYTES:
-            findings.append(f"envelope: signature {i} is {len(sig)} bytes, expected {SIGNATURE_BYTES} (truncated or padded)")
+            findings.append(f"envelope: signature {i} is {len(sig)} bytes, expected {SIGNATURE_BYTES} "
+                            "(truncated or padded)")
             continue
-        if payload is None or ptype is None:
-            continue
-        message = pae(ptype, payload)
-        key = next((k for k in keys if k.verify(sig, message)), None)
+        parsed.append(EnvelopeSignature(i, hint, sig))
+    if findings:
+        raise VerificationFailed(findings)
+    assert payload is not None and isinstance(ptype, str)
+    return ParsedEnvelope(payload, ptype, tuple(parsed), tuple(notes))
+
+
+@dataclass(frozen=True)
+class VerifiedSignature:
+    """A signature that verified: its place in the envelope, the trusted key, and the keyid hint."""
+
+    index: int
+    key: PublicKey
+    keyid_hint: str
+
+    @property
+    def key_id(self) -> str:
+        return self.key.key_id
+
+
+@dataclass(frozen=True)
+class VerifiedEnvelope:
+    """A DSSE envelope whose every signature checked: the exact payload bytes and who signed them.
+
+    `signers` holds one entry per signature, in envelope order; `key_id` is the first of them.
+    `notes` name the free choices of the envelope (see `ParsedEnvelope`).
+    """
+
+    payload: bytes
+    payload_type: str
+    signers: tuple[VerifiedSignature, ...]
+    notes: tuple[str, ...] = field(default=())
+
+    @property
+    def key_id(self) -> str:
+        return self.signers[0].key_id
+
+    @property
+    def signer_ids(self) -> tuple[str, ...]:
+        return tuple(s.key_id for s in self.signers)
+
+
+def _key_for(sig: EnvelopeSignature, message: bytes, keys: list[PublicKey]) -> PublicKey | None:
+    """The trusted key that verifies `sig`; the one the hint names is tried first (DSSE protocol.md)."""
+    ordered = sorted(keys, key=lambda k: k.key_id != sig.keyid)
+    return next((k for k in ordered if k.verify(sig.sig, message)), None)
+
+
+def verify_envelope(envelope: dict, trusted: Iterable[PublicKey], payload_type: str | None = PAYLOAD_TYPE,
+                    required: Iterable[PublicKey] = ()) -> VerifiedEnvelope:
+    """Check a DSSE envelope against trusted keys; raises VerificationFailed listing every problem.
+
+    1. At least one trusted key (an empty list never verifies).
+    2. The envelope decodes under the envelope rule (`parse_envelope`).
+    3. Every signature verifies over PAE(payloadType, payload) with a trusted key, no key signs
+       twice, and a keyid hint, when given, is that key's RFC 7638 thumbprint.
+    4. payloadType is the one expected (DSSE protocol.md: reject unsupported types).
+    5. Every key in `required` is among the signers (signatures can be removed unnoticed:
+       DSSE makes each one independent, so a recipient who expects a countersignature says so).
+    Nothing of the payload is parsed here.
+    """
+    keys = list(trusted)
+    need = list(required)
+    keys += [k for k in need if k not in keys]
+    if not keys:
+        raise VerificationFailed(["no trusted public key was given; an empty key list never verifies"])
+    parsed = parse_envelope(envelope)
+    findings: list[str] = []
+    message = pae(parsed.payload_type, parsed.payload)
+    signers: list[VerifiedSignature] = []
+    for s in parsed.signatures:
+        key = _key_for(s, message, keys)
         if key is None:
-            findings.append(f"signature: signature {i} (keyid hint {hint!r}) does not verify with any trusted key "
-                            f"({', '.join(k.key_id for k in keys)})")
+            hint = repr(s.keyid) if s.keyid else "none"
+            findings.append(
+                f"signature: signature {s.index} (keyid hint {hint}) does not verify with any trusted key "
+                f"({', '.join(k.name for k in keys)}); every signature must verify: if you trust its signer, "
+                "add their public key with --trusted-key, otherwise the envelope was altered")
             continue
-        if hint is not None and hint != key.key_id:
-            findings.append(f"signature: keyid hint {hint!r} does not name the key that verified ({key.key_id})")
-        verified_by = verified_by or key
-    if verified_by is None and not any(f.startswith("signature:") for f in findings):
+        if s.keyid and s.keyid != key.key_id:
+            findings.append(f"signature: signature {s.index} keyid hint {s.keyid!r} does not name the key that "
+                            f"verified it ({key.key_id}); keyids here are RFC 7638 thumbprints")
+        earlier = next((v for v in signers if v.key == key), None)
+        if earlier is None:
+            signers.append(VerifiedSignature(s.index, key, s.keyid))
+        else:
+            findings.append(f"signature: signature {s.index} is a second signature by key {key.key_id} "
+                            f"(signature {earlier.index}); a key signs an envelope once")
+    if payload_type is not None and parsed.payload_type != payload_type:
+        findings.append(f"envelope: payloadType is {parsed.payload_type!r}, expected {payload_type!r}")
+    for k in need:
+        if signers and all(v.key != k for v in signers):
+            findings.append(f"signature: required signer {k.name} has not signed this envelope")
+    if not signers and not findings:
         findings.append("signature: no signature verifies with a trusted key")
     if findings:
         raise VerificationFailed(findings)
-    assert payload is not None and ptype is not None and verified_by is not None
-    return VerifiedEnvelope(payload, ptype, verified_by.key_id)
+    return VerifiedEnvelope(parsed.payload, parsed.payload_type, tuple(signers), parsed.notes)
+
+
+def add_signature(envelope: dict, verified: VerifiedEnvelope, signer: Signer) -> dict:
+    """A copy of `envelope` with one more signature by `signer`, over the payload bytes `verified` checked.
+
+    The payload string, payloadType and existing signatures are kept exactly as they are; only
+    the new entry is appended. Raises VerificationFailed when `envelope` is not the one that was
+    verified, and OutputError when `signer` has already signed it.
+    """
+    parsed = parse_envelope(envelope)
+    if parsed.payload != verified.payload or parsed.payload_type != verified.payload_type:
+        raise VerificationFailed(["envelope: not the envelope that was verified (payload or payloadType differs)"])
+    if signer.key_id in verified.signer_ids:
+        raise OutputError(f"key {signer.key_id} has already signed this envelope")
+    out = dict(envelope)
+    out["signatures"] = [*envelope["signatures"], _signature_entry(verified.payload, verified.payload_type, signer)]
+    return out
 
 
 def build_statement(subjects: list[dict], predicate_type: str, predicate: dict) -> dict:

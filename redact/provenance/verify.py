@@ -1,14 +1,17 @@
 """Package verification: a numbered series of checks that mirrors the package format.
 
  1. Open the package (directory or .tar) without following links; unsafe entries are findings.
- 2. Read envelope.json strictly (size limit, duplicate keys, NaN) and require the exact bytes we write.
- 3. Check the DSSE signature over the exact payload bytes with the trusted keys. If it fails,
-    stop here: an unauthenticated payload is never parsed.
+ 2. Read envelope.json strictly (size limit, duplicate keys, NaN).
+ 3. Check every DSSE signature over the exact payload bytes with the trusted keys, under the
+    envelope rule of `signing` (only the DSSE fields, RFC 4648 canonical base64 in either
+    alphabet, keyid hints, several signatures, each of which must verify). If it fails, stop
+    here: an unauthenticated payload is never parsed. envelope.json's own bytes are not signed,
+    so their JSON layout is fixed instead: exactly what this tool writes for those values.
  4. Parse the payload strictly as an in-toto Statement v1 of our predicate type.
  5. Closed file set: package-file subjects = files in the package (minus envelope.json).
  6. Every file's size and SHA-256 against its subject.
  7. The transform log: chain intact, head and entry count equal to the signed predicate, and its
-    last entry records signing with the key that verified.
+    last entry records signing with one of the keys that verified (the package's author).
  8. frames.sha256: RFC 6962 root equals predicate source.frames_root (and the frame count).
  9. --source: SHA-256 and size equal predicate source.sha256 / source.bytes.
 10. --video: SHA-256 and size equal the redacted-video subject.
@@ -51,10 +54,12 @@ class VerifiedPackage:
 
     statement: dict
     payload: bytes
-    key_id: str
+    key_id: str  # the author: the key the log's signing entry names
     predicate: dict
     subjects: tuple[dict, ...]
     checked: tuple[str, ...] = field(default=())  # what was checked, in words, for reports
+    signers: tuple[signing.VerifiedSignature, ...] = field(default=())  # every key that signed, envelope order
+    notes: tuple[str, ...] = field(default=())  # accepted but unsigned envelope details
 
     @property
     def video_subject(self) -> dict | None:
@@ -62,21 +67,24 @@ class VerifiedPackage:
 
 
 def verify_package(path: Path, trusted_keys: Sequence[signing.PublicKey], source: Path | None = None,
-                   video: Path | None = None) -> VerifiedPackage:
+                   video: Path | None = None,
+                   required_signers: Sequence[signing.PublicKey] = ()) -> VerifiedPackage:
     """Run checks 1–10 on a package; raises VerificationFailed(findings) listing every problem.
 
-    An empty list of trusted keys is a usage error (InputError), never a pass.
+    Every signature must verify with one of `trusted_keys`; each of `required_signers` (trusted
+    too) must be among the signers. An empty list of trusted keys is a usage error
+    (InputError), never a pass.
     """
-    keys = list(trusted_keys)
+    keys = list(trusted_keys) + [k for k in required_signers if k not in trusted_keys]
     if not keys:
-        raise InputError("no trusted public key given; pass at least one --key PUB.pem")
+        raise InputError("no trusted public key given; pass at least one --trusted-key PUB.pem")
     for p, what in ((source, "source file"), (video, "redacted video")):
         if p is not None and not Path(p).is_file():
             raise InputError(f"{what} {p} does not exist")
     findings: list[str] = []
     try:
         with open_package(Path(path)) as reader:
-            result = _verify(reader, keys, source, video, findings)
+            result = _verify(reader, keys, source, video, findings, list(required_signers))
     except PackageError as e:  # step 1 could not even open it, or a file could not be read safely
         findings.append(str(e))
         result = None
@@ -89,7 +97,7 @@ def verify_package(path: Path, trusted_keys: Sequence[signing.PublicKey], source
 
 
 def _verify(reader: PackageReader, keys: list, source: Path | None, video: Path | None,
-            findings: list[str]) -> VerifiedPackage | None:
+            findings: list[str], required: list | None = None) -> VerifiedPackage | None:
     # 1. safe listing
     findings.extend(reader.problems)
     if isinstance(reader, TarReader):
@@ -108,19 +116,17 @@ def _verify(reader: PackageReader, keys: list, source: Path | None, video: Path 
         findings.append(str(e))
         return None
 
-    # 3. signature over the exact payload bytes
+    # 3. every signature over the exact payload bytes
     try:
-        verified = signing.verify_envelope(envelope, keys, signing.PAYLOAD_TYPE)
+        verified = signing.verify_envelope(envelope, keys, signing.PAYLOAD_TYPE, required or ())
     except VerificationFailed as e:
         findings.extend(e.findings)
         return None
-    try:
-        canonical = signing.envelope_bytes(envelope)
-    except (TypeError, ValueError):
-        canonical = b""
-    if env_bytes != canonical:
-        findings.append(f"{ENVELOPE}: not byte-identical to the envelope this tool writes "
-                        "(whitespace, key order, base64 alphabet or padding were altered)")
+    author = verified.key_id  # step 7 replaces it with the key the log's signing entry names
+    notes = [f"{ENVELOPE}: {n.removeprefix('envelope: ')}" for n in verified.notes]
+    if env_bytes != signing.envelope_bytes(envelope):
+        findings.append(f"{ENVELOPE}: not byte-identical to the envelope this tool writes for these values "
+                        "(compact JSON, sorted keys, one final newline): whitespace or key order were altered")
 
     # 4. statement
     try:
@@ -173,9 +179,11 @@ def _verify(reader: PackageReader, keys: list, source: Path | None, video: Path 
         last = report.last or {}
         if last.get("kind") != "sign":
             findings.append(f"{LOG}: the last entry is not the signing entry")
-        elif last.get("key_id") != verified.key_id:
+        elif last.get("key_id") not in verified.signer_ids:
             findings.append(f"{LOG}: the signing entry names key {last.get('key_id')!r}, "
-                            f"but the envelope was signed by {verified.key_id}")
+                            f"but the envelope was signed by {', '.join(verified.signer_ids)}")
+        else:
+            author = last["key_id"]
 
     # 8. per-frame digests and their RFC 6962 root
     src = predicate.get("source") if isinstance(predicate.get("source"), dict) else {}
@@ -218,7 +226,8 @@ def _verify(reader: PackageReader, keys: list, source: Path | None, video: Path 
                                 f"{want['name']} (SHA-256 or size differs)")
         checked.append("redacted video")
 
-    return VerifiedPackage(statement, verified.payload, verified.key_id, predicate, tuple(subjects), tuple(checked))
+    return VerifiedPackage(statement, verified.payload, author, predicate, tuple(subjects), tuple(checked),
+                           verified.signers, tuple(notes))
 
 
 def _check_statement(statement: dict, findings: list[str]) -> tuple[list[dict] | None, dict]:
