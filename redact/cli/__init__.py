@@ -29,6 +29,7 @@ COMMAND_MODULES = (
     "cmd_process",
     "cmd_batch",
     "cmd_keys",
+    "cmd_countersign",
     "cmd_verify",
     "cmd_inspect",
     "cmd_report",
