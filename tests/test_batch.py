@@ -242,7 +242,7 @@ def test_workers_need_the_encrypted_key_not_a_loaded_signer(tree, tmp_path):
 
 
 def _cli(tree, args, passphrase=PASSPHRASE):
-    return CliRunner().invoke(main, ["batch", *args, "--key", str(tree["private"]), "--input-size", "320",
+    return CliRunner().invoke(main, ["batch", *args, "--signing-key", str(tree["private"]), "--input-size", "320",
                                      "--threads", "1"], env={batch.PASSPHRASE_ENV: passphrase})
 
 

@@ -43,32 +43,32 @@ def test_help_names_passphrase_variable_and_cautions():
 
 
 def test_keygen_env_passphrase(tmp_path):
-    r = run("keygen", "--out-dir", tmp_path, "--name", "k", env={"REDACT_KEY_PASSPHRASE": "s3cret pass"})
+    r = run("keygen", "--out-dir", tmp_path, "--name", "k", env={"REDACT_KEY_PASSPHRASE": "s3cret pass phrase"})
     assert r.exit_code == 0, r.stderr
     key_id = r.stdout.strip()
     assert key_id == signing.load_public_key(tmp_path / "k.public.pem").key_id  # RFC 7638 id on stdout only
-    assert signing.load_private_key(tmp_path / "k.private.pem", b"s3cret pass").key_id == key_id
+    assert signing.load_private_key(tmp_path / "k.private.pem", b"s3cret pass phrase").key_id == key_id
     assert "k.private.pem" in r.stderr
-    again = run("keygen", "--out-dir", tmp_path, "--name", "k", env={"REDACT_KEY_PASSPHRASE": "x"})
+    again = run("keygen", "--out-dir", tmp_path, "--name", "k", env={"REDACT_KEY_PASSPHRASE": "another long passphrase"})
     assert again.exit_code == 2 and "already exists" in again.stderr and again.stdout == ""
     no_traceback(again)
 
 
 def test_keygen_prompts_twice_hidden(tmp_path):
-    r = run("keygen", "--out-dir", tmp_path, env={"REDACT_KEY_PASSPHRASE": None}, input="pw one\npw one\n")
+    r = run("keygen", "--out-dir", tmp_path, env={"REDACT_KEY_PASSPHRASE": None}, input="pw one two three\npw one two three\n")
     assert r.exit_code == 0, r.stderr
-    assert "pw one" not in r.stdout + r.stderr  # hidden input is not echoed
-    assert r.stdout.strip() == signing.load_private_key(tmp_path / "redact-signing.private.pem", b"pw one").key_id
+    assert "pw one two three" not in r.stdout + r.stderr  # hidden input is not echoed
+    assert r.stdout.strip() == signing.load_private_key(tmp_path / "redact-signing.private.pem", b"pw one two three").key_id
     empty = run("keygen", "--out-dir", tmp_path / "e", env={"REDACT_KEY_PASSPHRASE": ""})
     assert empty.exit_code == 2 and "empty passphrase" in empty.stderr
 
 
 def test_verify_valid(pkg):
-    r = run("verify", pkg["path"], "--key", pkg["pub"], "--source", pkg["source"], "--video", pkg["video"])
+    r = run("verify", pkg["path"], "--trusted-key", pkg["pub"], "--source", pkg["source"], "--video", pkg["video"])
     assert r.exit_code == 0, r.stdout + r.stderr
     assert r.stdout.startswith("VALID") and pkg["key_id"] in r.stdout
     assert "pseudonymised" in r.stderr
-    j = run("verify", pkg["path"], "--key", pkg["pub"], "--json")
+    j = run("verify", pkg["path"], "--trusted-key", pkg["pub"], "--json")
     doc = json.loads(j.stdout)
     assert j.exit_code == 0 and doc["valid"] is True and doc["key_id"] == pkg["key_id"] and doc["findings"] == []
 
@@ -79,12 +79,12 @@ def test_verify_invalid_lists_every_finding(pkg, tmp_path):
     (bad / "tracks.json").write_bytes(b"{}")
     (bad / "review.json").unlink()
     (bad / "extra.txt").write_bytes(b"x")
-    r = run("verify", bad, "--key", pkg["pub"])
+    r = run("verify", bad, "--trusted-key", pkg["pub"])
     assert r.exit_code == 1
     assert r.stdout.startswith("INVALID") and "4 finding(s)" in r.stdout
     for words in ("tracks.json: SHA-256", "tracks.json: size 2 bytes", "review.json: missing", "extra.txt: unexpected"):
         assert words in r.stdout
-    j = run("verify", bad, "--key", pkg["pub"], "--json")
+    j = run("verify", bad, "--trusted-key", pkg["pub"], "--json")
     doc = json.loads(j.stdout)
     assert j.exit_code == 1 and doc["valid"] is False and len(doc["findings"]) == 4
 
@@ -92,31 +92,31 @@ def test_verify_invalid_lists_every_finding(pkg, tmp_path):
 def test_verify_other_source_fails(pkg, tmp_path):
     other = tmp_path / "other.mp4"
     other.write_bytes(b"not the source")
-    r = run("verify", pkg["path"], "--key", pkg["pub"], "--source", other)
+    r = run("verify", pkg["path"], "--trusted-key", pkg["pub"], "--source", other)
     assert r.exit_code == 1 and "source:" in r.stdout
 
 
 def test_verify_untrusted_key(pkg, tmp_path):
     other = tmp_path / "other.pem"
     other.write_bytes(signing.Signer.from_seed(bytes(32)).public_pem)
-    r = run("verify", pkg["path"], "--key", other)
+    r = run("verify", pkg["path"], "--trusted-key", other)
     assert r.exit_code == 1 and "does not verify with any trusted key" in r.stdout
 
 
 def test_verify_usage_errors(pkg, tmp_path):
     r = run("verify", pkg["path"])
-    assert r.exit_code == 2 and "--key" in r.stderr  # no trusted key: usage error, never a pass
+    assert r.exit_code == 2 and "--trusted-key" in r.stderr  # no trusted key: usage error, never a pass
     junk = tmp_path / "junk.pem"
     junk.write_bytes(b"junk")
-    r = run("verify", pkg["path"], "--key", junk)
+    r = run("verify", pkg["path"], "--trusted-key", junk)
     assert r.exit_code == 2 and r.stderr.startswith("error:") and r.stdout == ""
     no_traceback(r)
-    r = run("verify", tmp_path / "missing", "--key", pkg["pub"])
+    r = run("verify", tmp_path / "missing", "--trusted-key", pkg["pub"])
     assert r.exit_code == 2
 
 
 def test_inspect(pkg):
-    r = run("inspect", pkg["path"], "--key", pkg["pub"], "--json")
+    r = run("inspect", pkg["path"], "--trusted-key", pkg["pub"], "--json")
     assert r.exit_code == 0, r.stderr
     doc = json.loads(r.stdout)
     assert doc["verified"] and doc["counts"] == {"frames": 6, "people": 10, "tracks": 2, "fault_frames": 1}
@@ -129,17 +129,17 @@ def test_inspect(pkg):
 def test_inspect_with_wrong_key_fails(pkg, tmp_path):
     other = tmp_path / "other.pem"
     other.write_bytes(signing.Signer.from_seed(bytes(32)).public_pem)
-    r = run("inspect", pkg["path"], "--key", other)
+    r = run("inspect", pkg["path"], "--trusted-key", other)
     assert r.exit_code == 1 and "does not verify" in r.stderr
 
 
 def test_frame_proof_and_check(pkg, tmp_path):
     out = tmp_path / "f3.proof.json"
-    r = run("frame-proof", pkg["path"], "--key", pkg["pub"], "--frame", 3, "--out", out)
+    r = run("frame-proof", pkg["path"], "--trusted-key", pkg["pub"], "--frame", 3, "--out", out)
     assert r.exit_code == 0, r.stderr
     proof = merkle.FrameProof.from_json(out.read_bytes())
     assert proof.frame == 3 and proof.size == N_FRAMES and proof.leaf == pkg["digests"][3]
-    ok = run("frame-check", out, "--package", pkg["path"], "--key", pkg["pub"], "--frame-digest", pkg["digests"][3].hex())
+    ok = run("frame-check", out, "--package", pkg["path"], "--trusted-key", pkg["pub"], "--frame-digest", pkg["digests"][3].hex())
     assert ok.exit_code == 0 and ok.stdout.startswith("VALID")
     root_hex = merkle.root(pkg["digests"]).hex()
     assert run("frame-check", out, "--root", root_hex).exit_code == 0
@@ -150,10 +150,10 @@ def test_frame_proof_and_check(pkg, tmp_path):
     doc["path"][0] = "00" * 32
     bad = tmp_path / "bad.json"
     bad.write_text(json.dumps(doc))
-    r = run("frame-check", bad, "--package", pkg["path"], "--key", pkg["pub"])
+    r = run("frame-check", bad, "--package", pkg["path"], "--trusted-key", pkg["pub"])
     assert r.exit_code == 1 and "audit path" in r.stdout
     # refusals: existing output, frame out of range, neither --package nor --root
-    assert run("frame-proof", pkg["path"], "--key", pkg["pub"], "--frame", 1, "--out", out).exit_code == 2
-    r = run("frame-proof", pkg["path"], "--key", pkg["pub"], "--frame", N_FRAMES, "--out", tmp_path / "x.json")
+    assert run("frame-proof", pkg["path"], "--trusted-key", pkg["pub"], "--frame", 1, "--out", out).exit_code == 2
+    r = run("frame-proof", pkg["path"], "--trusted-key", pkg["pub"], "--frame", N_FRAMES, "--out", tmp_path / "x.json")
     assert r.exit_code == 2 and "does not exist" in r.stderr and not (tmp_path / "x.json").exists()
     assert run("frame-check", out).exit_code == 2

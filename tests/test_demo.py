@@ -28,7 +28,7 @@ def test_demo_writes_everything_it_points_to(crossing_clip, tmp_path):
     assert "Open first" in r.stdout and "pseudonymised" in r.stdout
     html = (out / "report.html").read_text()
     assert "VALID" in html
-    v = CliRunner().invoke(main, ["verify", str(out / "package"), "--key", str(out / "demo-key" / "demo.public.pem"),
+    v = CliRunner().invoke(main, ["verify", str(out / "package"), "--trusted-key", str(out / "demo-key" / "demo.public.pem"),
                                   "--video", str(out / "redacted.mp4"), "--source", str(crossing_clip.path), "--json"])
     assert v.exit_code == 0, v.output
     assert json.loads(v.stdout)

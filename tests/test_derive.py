@@ -361,36 +361,36 @@ def _invoke(args, **env):
 def test_cli_derive_writes_a_package_that_verifies(parent, keys, tmp_path):
     private, public = keys
     out = tmp_path / "shared"
-    r = _invoke(["derive", str(parent["package"]), "--key", str(parent["pub"]), "--sign-key", str(private),
+    r = _invoke(["derive", str(parent["package"]), "--trusted-key", str(parent["pub"]), "--signing-key", str(private),
                  "--out", str(out), "--drop-keypoints", "head,left_wrist", "--new-ids", "--target-fps", "10",
                  "--recipient", "lab", "--json"])
     assert r.exit_code == 0, r.output
     doc = json.loads(r.stdout)  # exactly one JSON document
     assert doc["parent"]["statement_sha256"] == hashlib.sha256(_payload(parent["package"])).hexdigest()
     assert doc["privacy"]["drop_keypoints"] == COCO_HEAD + ["left_wrist"] and "GaitPT" in r.stderr
-    v = _invoke(["verify", str(out), "--key", str(public)])
+    v = _invoke(["verify", str(out), "--trusted-key", str(public)])
     assert v.exit_code == 0 and v.stdout.startswith("VALID")
-    e = _invoke(["export", str(out), "--key", str(public), "--format", "npz", "--out", str(tmp_path / "a.npz")])
+    e = _invoke(["export", str(out), "--trusted-key", str(public), "--format", "npz", "--out", str(tmp_path / "a.npz")])
     assert e.exit_code == 0 and (tmp_path / "a.npz").is_file()
     tar = tmp_path / "shared.tar"
-    r = _invoke(["derive", str(out), "--key", str(public), "--sign-key", str(private), "--out", str(tar),
+    r = _invoke(["derive", str(out), "--trusted-key", str(public), "--signing-key", str(private), "--out", str(tar),
                  "--decimals", "1", "--archive"])
     assert r.exit_code == 0 and tar.is_file() and "derived package" in r.stdout
-    e = _invoke(["export", str(tar), "--key", str(public), "--format", "coco", "--out", str(tmp_path / "c.json")])
+    e = _invoke(["export", str(tar), "--trusted-key", str(public), "--format", "coco", "--out", str(tmp_path / "c.json")])
     assert e.exit_code == 0 and (tmp_path / "c.gt.json").is_file()
 
 
 def test_cli_derive_errors(parent, keys, tmp_path):
     private, public = keys
-    base = ["derive", str(parent["package"]), "--sign-key", str(private)]
+    base = ["derive", str(parent["package"]), "--signing-key", str(private)]
     cases = {
-        "no option": (base + ["--key", str(parent["pub"]), "--out", str(tmp_path / "a")], 2, "no de-identification"),
-        "wrong parent key": (base + ["--key", str(public), "--out", str(tmp_path / "b"), "--new-ids"], 1, "signature"),
-        "bad keypoint": (base + ["--key", str(parent["pub"]), "--out", str(tmp_path / "c"),
+        "no option": (base + ["--trusted-key", str(parent["pub"]), "--out", str(tmp_path / "a")], 2, "no de-identification"),
+        "wrong parent key": (base + ["--trusted-key", str(public), "--out", str(tmp_path / "b"), "--new-ids"], 1, "signature"),
+        "bad keypoint": (base + ["--trusted-key", str(parent["pub"]), "--out", str(tmp_path / "c"),
                                  "--drop-keypoints", "tail"], 2, "--drop-keypoints"),
-        "bad combination": (base + ["--key", str(parent["pub"]), "--out", str(tmp_path / "d"),
+        "bad combination": (base + ["--trusted-key", str(parent["pub"]), "--out", str(tmp_path / "d"),
                                     "--keep-position"], 2, "--keep-position"),
-        "exists": (base + ["--key", str(parent["pub"]), "--out", str(parent["package"].parent), "--new-ids"],
+        "exists": (base + ["--trusted-key", str(parent["pub"]), "--out", str(parent["package"].parent), "--new-ids"],
                    2, "already exists"),
     }
     for name, (args, code, words) in cases.items():
@@ -399,7 +399,7 @@ def test_cli_derive_errors(parent, keys, tmp_path):
         assert r.stderr.startswith("error:") and words in r.stderr, (name, r.stderr)
         assert len(r.stderr.strip().splitlines()) == 1 and "Traceback" not in r.output, name
         assert r.stdout == "", name
-    wrong = _invoke(base + ["--key", str(parent["pub"]), "--out", str(tmp_path / "e"), "--new-ids"],
+    wrong = _invoke(base + ["--trusted-key", str(parent["pub"]), "--out", str(tmp_path / "e"), "--new-ids"],
                     REDACT_KEY_PASSPHRASE="wrong")
     assert wrong.exit_code == 2 and "passphrase" in wrong.stderr
     assert sorted(p.name for p in tmp_path.iterdir()) == []  # nothing written, no partial folder

@@ -594,7 +594,7 @@ def test_cli_bad_plan_is_one_line_error_and_no_output(crossing_clip, tmp_path, k
     plan_path = tmp_path / "plan.json"
     plan_path.write_text(json.dumps({"version": PLAN_VERSION, **make(_valid_sheet(crossing_clip.path))}))
     out = tmp_path / "out"
-    r = CliRunner().invoke(main, ["process", str(crossing_clip.path), "--out", str(out), "--key", str(key),
+    r = CliRunner().invoke(main, ["process", str(crossing_clip.path), "--out", str(out), "--signing-key", str(key),
                                   "--plan", str(plan_path), "--quiet"])
     assert r.exit_code == 2, r.output
     lines = [ln for ln in r.stderr.splitlines() if ln.strip()]

@@ -158,13 +158,15 @@ def _leftovers(out: Path) -> list[str]:
 
 def test_cli_process_writes_and_verifies(crossing_clip, tmp_path, key):
     out = tmp_path / "cli-out"
-    r = CliRunner().invoke(main, ["process", str(crossing_clip.path), "--out", str(out), "--key", str(key),
+    r = CliRunner().invoke(main, ["process", str(crossing_clip.path), "--out", str(out), "--signing-key", str(key),
                                   "--style", "blur", "--json", "--recipient", "R. Person", "--purpose", "test"])
     assert r.exit_code == 0, r.output
     summary = json.loads(r.stdout)
     assert summary["frames"] == len(crossing_clip.truths)
-    assert _leftovers(out) == ["package", "redacted.mp4"]
-    v = CliRunner().invoke(main, ["verify", str(out / "package"), "--key", str(key.with_name("t.public.pem")),
+    assert _leftovers(out) == ["package", "redacted.mp4", "report.html"]  # the report by default
+    assert summary["report"] == str(out / "report.html")
+    assert [i["open"] for i in summary["open_first"]][:2] == [str(out / "report.html"), str(out / "redacted.mp4")]
+    v = CliRunner().invoke(main, ["verify", str(out / "package"), "--trusted-key", str(key.with_name("t.public.pem")),
                                   "--source", str(crossing_clip.path), "--video", str(out / "redacted.mp4")])
     assert v.exit_code == 0, v.output
 
@@ -172,7 +174,7 @@ def test_cli_process_writes_and_verifies(crossing_clip, tmp_path, key):
 @pytest.mark.parametrize("name", ["missing", "directory", "text", "png", "empty", "zero_frames"])
 def test_bad_inputs_get_one_line_errors_and_no_output(bad_inputs, tmp_path, key, name):
     out = tmp_path / "bad-out"
-    r = CliRunner().invoke(main, ["process", str(bad_inputs[name]), "--out", str(out), "--key", str(key)])
+    r = CliRunner().invoke(main, ["process", str(bad_inputs[name]), "--out", str(out), "--signing-key", str(key)])
     assert r.exit_code == 2, r.output
     lines = [ln for ln in r.stderr.splitlines() if ln.strip()]
     assert len(lines) == 1 and lines[0].startswith("error: "), r.stderr
@@ -182,7 +184,7 @@ def test_bad_inputs_get_one_line_errors_and_no_output(bad_inputs, tmp_path, key,
 
 def test_truncated_input_is_processed_as_far_as_it_decodes(bad_inputs, tmp_path, key):
     out = tmp_path / "trunc-out"
-    r = CliRunner().invoke(main, ["process", str(bad_inputs["truncated"]), "--out", str(out), "--key", str(key),
+    r = CliRunner().invoke(main, ["process", str(bad_inputs["truncated"]), "--out", str(out), "--signing-key", str(key),
                                   "--json"])
     assert r.exit_code == 0, r.output
     summary = json.loads(r.stdout)
@@ -197,7 +199,7 @@ def test_output_that_would_overwrite_the_input_is_refused(crossing_clip, tmp_pat
     src.write_bytes(crossing_clip.path.read_bytes())
     before = src.read_bytes()
     for out in (tmp_path, src):
-        r = CliRunner().invoke(main, ["process", str(src), "--out", str(out), "--key", str(key)])
+        r = CliRunner().invoke(main, ["process", str(src), "--out", str(out), "--signing-key", str(key)])
         assert r.exit_code == 2 and "overwrite the input" in r.stderr, r.output
     assert src.read_bytes() == before
     assert sorted(p.name for p in tmp_path.iterdir()) == ["keys", "redacted.mp4"]
@@ -206,21 +208,21 @@ def test_output_that_would_overwrite_the_input_is_refused(crossing_clip, tmp_pat
 def test_unwritable_output_is_refused(crossing_clip, tmp_path, key):
     blocker = tmp_path / "a-file"
     blocker.write_text("not a folder")
-    r = CliRunner().invoke(main, ["process", str(crossing_clip.path), "--out", str(blocker / "sub"), "--key", str(key)])
+    r = CliRunner().invoke(main, ["process", str(crossing_clip.path), "--out", str(blocker / "sub"), "--signing-key", str(key)])
     assert r.exit_code == 2 and r.stderr.startswith("error: "), r.output
 
 
 def test_existing_outputs_are_never_overwritten(crossing_clip, tmp_path, key):
     out = tmp_path / "o"
     (out / "package").mkdir(parents=True)
-    r = CliRunner().invoke(main, ["process", str(crossing_clip.path), "--out", str(out), "--key", str(key)])
+    r = CliRunner().invoke(main, ["process", str(crossing_clip.path), "--out", str(out), "--signing-key", str(key)])
     assert r.exit_code == 2 and "already exists" in r.stderr
     assert _leftovers(out) == ["package"]
 
 
 def test_cli_process_with_privacy_options_is_signed_and_applied(crossing_clip, tmp_path, key):
     out = tmp_path / "private-out"
-    r = CliRunner().invoke(main, ["process", str(crossing_clip.path), "--out", str(out), "--key", str(key),
+    r = CliRunner().invoke(main, ["process", str(crossing_clip.path), "--out", str(out), "--signing-key", str(key),
                                   "--drop-keypoints", "head", "--new-ids", "--quiet"])
     assert r.exit_code == 0, r.output
     rows = _rows(type("R", (), {"package": out / "package"}))
@@ -229,7 +231,7 @@ def test_cli_process_with_privacy_options_is_signed_and_applied(crossing_clip, t
     ids = {int(i) for row in rows for i in row.tracks.ids}
     tracks = json.loads((out / "package" / "tracks.json").read_text())["tracks"]
     assert ids == {t["id"] for t in tracks}
-    v = CliRunner().invoke(main, ["verify", str(out / "package"), "--key", str(key.with_name("t.public.pem")),
+    v = CliRunner().invoke(main, ["verify", str(out / "package"), "--trusted-key", str(key.with_name("t.public.pem")),
                                   "--json"])
     assert v.exit_code == 0, v.output
     envelope = json.loads((out / "package" / "envelope.json").read_text())
@@ -242,7 +244,7 @@ def test_cli_process_audit_is_recorded_in_the_log(crossing_clip, tmp_path, key):
     """`process --audit` runs redact.redaction.audit (an independent face detector, MediaPipe BlazeFace, and
     the pose model at a larger size) on its own output and the source, and logs the result."""
     out = tmp_path / "audited"
-    r = CliRunner().invoke(main, ["process", str(crossing_clip.path), "--out", str(out), "--key", str(key),
+    r = CliRunner().invoke(main, ["process", str(crossing_clip.path), "--out", str(out), "--signing-key", str(key),
                                   "--audit", "--json", "--quiet"])
     assert r.exit_code == 0, r.output
     audit = json.loads(r.stdout)["audit"]
@@ -253,11 +255,11 @@ def test_cli_process_audit_is_recorded_in_the_log(crossing_clip, tmp_path, key):
 
 def test_missing_key_or_passphrase_are_one_line_errors(crossing_clip, tmp_path, key, monkeypatch):
     out = tmp_path / "nokey"
-    r = CliRunner().invoke(main, ["process", str(crossing_clip.path), "--out", str(out), "--key",
+    r = CliRunner().invoke(main, ["process", str(crossing_clip.path), "--out", str(out), "--signing-key",
                                   str(tmp_path / "absent.pem")])
     assert r.exit_code == 2 and "no such key file" in r.stderr
     monkeypatch.delenv("REDACT_KEY_PASSPHRASE")
-    r = CliRunner().invoke(main, ["process", str(crossing_clip.path), "--out", str(out), "--key", str(key)], input="")
+    r = CliRunner().invoke(main, ["process", str(crossing_clip.path), "--out", str(out), "--signing-key", str(key)], input="")
     assert r.exit_code == 2 and "REDACT_KEY_PASSPHRASE" in r.stderr.splitlines()[-1]
     assert not out.exists()
 

@@ -400,20 +400,20 @@ def _invoke(*args):
 
 def test_cli_writes_the_report(made, tmp_path):
     out = tmp_path / "r.html"
-    r = _invoke(made["result"].package, "--key", made["pub"], "--video", made["result"].video, "-o", out)
+    r = _invoke(made["result"].package, "--trusted-key", made["pub"], "--video", made["result"].video, "--out", out)
     assert r.exit_code == 0, r.stderr
     assert r.stdout.strip() == str(out)
     page = out.read_text(encoding="utf-8")
     assert "Signature and contents: VALID" in page and made["result"].source_sha256 in page
     assert sorted(p.name for p in tmp_path.iterdir()) == ["r.html"]  # no temporary file left
-    again = _invoke(made["result"].package, "--key", made["pub"], "-o", out)
+    again = _invoke(made["result"].package, "--trusted-key", made["pub"], "--out", out)
     assert again.exit_code == 2 and "already exists" in again.stderr
     assert out.read_text(encoding="utf-8") == page
 
 
 def test_cli_bad_package_is_a_one_line_error(made, tmp_path):
     out = tmp_path / "r.html"
-    r = _invoke(tmp_path / "no-such-package", "--key", made["pub"], "-o", out)
+    r = _invoke(tmp_path / "no-such-package", "--trusted-key", made["pub"], "--out", out)
     assert r.exit_code == 2
     assert r.stderr.startswith("error: ") and len(r.stderr.strip().splitlines()) == 1
     assert "Traceback" not in r.stdout + r.stderr
@@ -422,7 +422,7 @@ def test_cli_bad_package_is_a_one_line_error(made, tmp_path):
 
 def test_cli_tampered_package_exits_1_with_the_report(made, tmp_path):
     out = tmp_path / "r.html"
-    r = _invoke(made["dir"] / "tampered", "--key", made["pub"], "-o", out)
+    r = _invoke(made["dir"] / "tampered", "--trusted-key", made["pub"], "--out", out)
     assert r.exit_code == 1
     assert "VERIFICATION FAILED" in out.read_text(encoding="utf-8")
     assert "FAILED" in r.stderr

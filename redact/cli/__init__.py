@@ -16,7 +16,8 @@ CAUTION = (
 )
 
 
-@click.group(help=f"Redact people from video and share signed skeleton-only data.\n\n{CAUTION}")
+@click.group(help=f"Redact people from video and share signed skeleton-only data.\n\n{CAUTION}",
+             context_settings={"help_option_names": ["-h", "--help"]})
 @click.version_option(__version__, prog_name="redact")
 def main() -> None:
     """Entry point of the `redact` console script."""

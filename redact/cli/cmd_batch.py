@@ -11,6 +11,7 @@ import click
 from redact.cli import CAUTION, main
 from redact.cli.cmd_keys import PASSPHRASE_ENV, read_passphrase
 from redact.cli.common import echo_json, library_errors
+from redact.cli.keyfiles import check_signing_key, signing_key_option
 from redact.cli.options import pipeline_options
 
 
@@ -32,9 +33,9 @@ def _progress(quiet: bool):
 
 @main.command("batch", epilog=f"""\b
 Example:
-  redact batch archive/ --out archive-redacted --key keys/steward.private.pem
-  redact batch archive/ --out archive-redacted --key keys/steward.private.pem --workers 2
-  redact batch archive/ --out archive-redacted --key keys/steward.private.pem \\
+  redact batch archive/ --out archive-redacted --signing-key keys/steward.private.pem
+  redact batch archive/ --out archive-redacted --signing-key keys/steward.private.pem --workers 2
+  redact batch archive/ --out archive-redacted --signing-key keys/steward.private.pem \\
       --scheduler tcp://10.0.0.5:8786
 
 The key passphrase is read from ${PASSPHRASE_ENV} or prompted (hidden). With --scheduler
@@ -51,8 +52,7 @@ failed, 2 on a usage error.
 @click.argument("input_dir", type=click.Path(path_type=Path, file_okay=False))
 @click.option("--out", "out", required=True, type=click.Path(path_type=Path, file_okay=False),
               help="Output folder (created if missing; reused to resume).")
-@click.option("--key", "key", required=True, type=click.Path(path_type=Path, dir_okay=False),
-              help="Private signing key (PKCS#8 PEM from `redact keygen`).")
+@signing_key_option()
 @click.option("--workers", type=click.IntRange(1, 256), default=1, show_default=True,
               help="Local worker processes; each loads the model once and uses cores / N threads.")
 @click.option("--scheduler", metavar="ADDRESS", default=None,
@@ -61,7 +61,7 @@ failed, 2 on a usage error.
 @click.option("--json", "as_json", is_flag=True, help="Print one JSON summary on stdout.")
 @click.option("--quiet", is_flag=True, help="No per-input progress lines.")
 @library_errors
-def batch(input_dir: Path, out: Path, key: Path, workers: int, scheduler: str | None, settings,
+def batch(input_dir: Path, out: Path, signing_key: Path, workers: int, scheduler: str | None, settings,
           as_json: bool, quiet: bool) -> None:
     """Redact every video in a folder tree into one signed skeleton-only package each.
 
@@ -75,7 +75,7 @@ def batch(input_dir: Path, out: Path, key: Path, workers: int, scheduler: str | 
         raise click.UsageError("give either --workers or --scheduler, not both")
     if not input_dir.is_dir():
         raise click.BadParameter(f"{input_dir}: no such folder", param_hint="INPUT_DIR")
-    batch_key = BatchKey.load(key, read_passphrase(confirm=False))
+    batch_key = BatchKey.load(check_signing_key(signing_key), read_passphrase(confirm=False))
     if scheduler and not quiet and os.environ.get(PASSPHRASE_ENV) is None:
         click.echo(f"note: Dask workers read the passphrase from their own ${PASSPHRASE_ENV}", err=True)
     result = run_batch(input_dir, out, batch_key, settings, workers=workers, scheduler=scheduler,

@@ -10,6 +10,7 @@ import click
 from redact.cli import main
 from redact.cli.cmd_keys import PASSPHRASE_ENV, read_passphrase
 from redact.cli.common import echo_json, library_errors
+from redact.cli.keyfiles import check_signing_key, load_trusted_keys
 from redact.errors import VerificationFailed
 
 
@@ -38,17 +39,18 @@ A signature says you checked this package; it does not make sharing it lawful.""
               type=click.Path(exists=True, dir_okay=False, path_type=Path),
               help="Public key of a signer already on the package (PEM); repeat for several.")
 @click.option("--out", "out", type=click.Path(path_type=Path),
-              help="Write the countersigned package here (must not exist) instead of changing PACKAGE.")
+              help="The countersigned copy: a folder, or a .tar file when PACKAGE is one (must not exist); "
+                   "without it PACKAGE itself is changed.")
 @click.option("--json", "as_json", is_flag=True, help="Print one JSON document on stdout.")
 @library_errors
 def countersign(package: Path, signing_key: Path, trusted_keys: tuple[Path, ...], out: Path | None,
                 as_json: bool) -> None:
     """Add your signature to PACKAGE (a folder or .tar) and say who has signed it now."""
     from redact.provenance.countersign import countersign_package
-    from redact.provenance.signing import load_private_key, load_public_key
+    from redact.provenance.signing import load_private_key
 
-    trusted = [load_public_key(k) for k in trusted_keys]  # key files checked before any prompt
-    signer = load_private_key(signing_key, read_passphrase(confirm=False))
+    trusted = load_trusted_keys(trusted_keys)  # key files checked before any prompt
+    signer = load_private_key(check_signing_key(signing_key), read_passphrase(confirm=False))
     try:
         result = countersign_package(package, signer, trusted, out=out)
     except VerificationFailed as e:

@@ -10,13 +10,14 @@ import click
 from redact.cli import main
 from redact.cli.cmd_keys import PASSPHRASE_ENV, read_passphrase
 from redact.cli.common import echo_json, library_errors
+from redact.cli.keyfiles import check_signing_key, load_trusted_keys, signing_key_option, trusted_keys_option
 from redact.cli.options import disclosure_options
 from redact.cli.privacy_options import PRIVACY_CAUTION, privacy_options
 
 
 @main.command("derive", epilog=f"""\b
 Example:
-  redact derive out/package --key steward.public.pem --sign-key steward.private.pem \\
+  redact derive out/package --trusted-key steward.public.pem --signing-key steward.private.pem \\
       --out share-2025-06 --drop-keypoints head --normalise-proportions \\
       --noise-px 2 --target-fps 10 --new-ids --relative-time \\
       --recipient "Gait lab" --purpose "research agreement 17"
@@ -31,32 +32,29 @@ Exit status: 0 written, 1 the parent does not verify, 2 usage or input error.
 
 Caution: {PRIVACY_CAUTION} Share it only as your data-protection officer allows.""")
 @click.argument("package", type=click.Path(exists=True, path_type=Path))
-@click.option("--key", "keys", multiple=True, required=True,
-              type=click.Path(exists=True, dir_okay=False, path_type=Path),
-              help="Trusted public key (PEM) of the parent package; repeat for several.")
-@click.option("--sign-key", required=True, type=click.Path(exists=True, dir_okay=False, path_type=Path),
-              help="Private key (PKCS#8 PEM from `redact keygen`) that signs the new package.")
+@trusted_keys_option(help="Trusted public key, a file (NAME.public.pem) of the parent package; repeat for several.")
+@signing_key_option(help="Private key that signs the new package, a file (NAME.private.pem from `redact keygen`).")
 @click.option("--out", required=True, type=click.Path(path_type=Path),
-              help="The new package (a folder, or a .tar with --archive); must not exist.")
+              help="The new package: a folder to create (or a .tar file with --archive); must not exist.")
 @privacy_options
 @disclosure_options
 @click.option("--archive", is_flag=True, help="Write the new package as one .tar instead of a folder.")
 @click.option("--json", "as_json", is_flag=True, help="Print one JSON summary on stdout.")
 @library_errors
-def derive_cmd(package: Path, keys: tuple[Path, ...], sign_key: Path, out: Path, privacy, disclosure,
+def derive_cmd(package: Path, trusted_keys: tuple[Path, ...], signing_key: Path, out: Path, privacy, disclosure,
                archive: bool, as_json: bool) -> None:
     """Make a new signed, skeleton-only package from PACKAGE (a folder or .tar) with its skeletons
     de-identified: dropped keypoints, standard body proportions, relative coordinates, fewer frames,
     coarser numbers, noise, new track ids, relative time.
     """
     from redact.errors import InputError
-    from redact.provenance.signing import load_private_key, load_public_key
+    from redact.provenance.signing import load_private_key
     from redact.skeletons.derive import derive
 
     if privacy is None:
         raise InputError("no de-identification option given; choose at least one (see --help)")
-    trusted = [load_public_key(k) for k in keys]
-    signer = load_private_key(sign_key, read_passphrase(confirm=False))
+    trusted = load_trusted_keys(trusted_keys)
+    signer = load_private_key(check_signing_key(signing_key), read_passphrase(confirm=False))
     result = derive(package, out, trusted, signer, privacy, disclosure, archive=archive)
     click.echo(f"caution: {PRIVACY_CAUTION}", err=True)
     if as_json:

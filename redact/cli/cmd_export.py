@@ -8,6 +8,7 @@ import click
 
 from redact.cli import main
 from redact.cli.common import echo_json, library_errors
+from redact.cli.keyfiles import load_trusted_keys, trusted_keys_option
 
 EXPORT_CAUTION = (
     "The exported skeletons are pseudonymised personal data, not anonymous data: people can be "
@@ -36,17 +37,18 @@ ground-truth-style file of images and the COCO-17 category (--gt-out), loadable 
 
 {EXPORT_CAUTION}""", epilog="""\b
 Examples:
-  redact export out/package --key steward.public.pem --format npz --out tracks.npz
-  redact export out/package.tar --key steward.public.pem --format coco --out results.json
+  redact export out/package --trusted-key steward.public.pem --format npz --out tracks.npz
+  redact export out/package.tar --trusted-key steward.public.pem --format coco --out results.json
   redact export out/package --format coco --out results.json --frame-size 1920x1080
 
-With --key the package is verified first (exit 1 when it does not verify) and COCO images get
+With --trusted-key the package is verified first (exit 1 when it does not verify) and COCO images get
 the signed frame size; without it the package is read unverified.""")
 @click.argument("package", type=click.Path(exists=True, path_type=Path))
-@click.option("--key", "keys", multiple=True, type=click.Path(exists=True, dir_okay=False, path_type=Path),
-              help="Trusted public key (PEM): verify the package before exporting; repeat for several.")
+@trusted_keys_option(required=False, help="Trusted public key, a file (NAME.public.pem): verify the package "
+                                           "before exporting; repeat for several.")
 @click.option("--format", "fmt", required=True, type=click.Choice(["npz", "coco"]), help="Output format.")
-@click.option("--out", required=True, type=click.Path(dir_okay=False, path_type=Path), help="File to write.")
+@click.option("--out", required=True, type=click.Path(dir_okay=False, path_type=Path),
+              help="The export, a file to write (must not exist unless --force).")
 @click.option("--gt-out", type=click.Path(dir_okay=False, path_type=Path), default=None,
               help="coco only: images/categories file (default: OUT with .gt.json).")
 @click.option("--frame-size", callback=_frame_size, default=None, metavar="WxH",
@@ -54,19 +56,18 @@ the signed frame size; without it the package is read unverified.""")
 @click.option("--force", is_flag=True, help="Overwrite existing output files.")
 @click.option("--json", "as_json", is_flag=True, help="Print the summary as one JSON document.")
 @library_errors
-def export_cmd(package: Path, keys: tuple[Path, ...], fmt: str, out: Path, gt_out: Path | None, frame_size,
+def export_cmd(package: Path, trusted_keys: tuple[Path, ...], fmt: str, out: Path, gt_out: Path | None, frame_size,
                force: bool, as_json: bool) -> None:
     from redact.errors import InputError
-    from redact.provenance.signing import load_public_key
     from redact.skeletons.export import export_package
 
     if fmt == "npz" and (gt_out is not None or frame_size is not None):
         raise InputError("--gt-out and --frame-size only apply to --format coco")
-    trusted = [load_public_key(k) for k in keys]
+    trusted = load_trusted_keys(trusted_keys)
     summary = export_package(package, fmt, out, gt_out=gt_out, frame_size=frame_size, force=force,
                              trusted_keys=trusted or None)
     if not trusted:
-        click.echo("note: the package was not verified (use --key PUB.pem)", err=True)
+        click.echo("note: the package was not verified (use --trusted-key NAME.public.pem)", err=True)
     click.echo(f"caution: {EXPORT_CAUTION}", err=True)
     if as_json:
         echo_json(summary)

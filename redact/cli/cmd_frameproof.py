@@ -15,18 +15,18 @@ import click
 
 from redact.cli import main
 from redact.cli.common import echo_json, library_errors
+from redact.cli.keyfiles import load_trusted_keys, trusted_keys_option
 
 
-def _verified_frames(package: Path, keys: tuple[Path, ...]):
+def _verified_frames(package: Path, trusted_keys: tuple[Path, ...]):
     """Verify the package, then return (verified package, per-frame digests)."""
     from redact import jsonio
     from redact.errors import InputError
     from redact.provenance import merkle
     from redact.provenance.package import FRAMES, open_package
-    from redact.provenance.signing import load_public_key
     from redact.provenance.verify import verify_package
 
-    result = verify_package(package, [load_public_key(k) for k in keys])
+    result = verify_package(package, load_trusted_keys(trusted_keys))
     with open_package(package) as reader:
         if FRAMES not in reader.files:
             raise InputError(f"the package has no {FRAMES}: it was written without per-frame digests")
@@ -37,22 +37,23 @@ def _verified_frames(package: Path, keys: tuple[Path, ...]):
 
 @main.command("frame-proof", epilog="""\b
 Example:
-  redact frame-proof out/package --key steward.public.pem --frame 1200 --out frame-1200.proof.json
+  redact frame-proof out/package --trusted-key steward.public.pem --frame 1200 --out frame-1200.proof.json
 
 The package is verified first. The proof holds the frame's digest, the signed root and the
 audit path; it reveals nothing about other frames beyond their hashes.""")
 @click.argument("package", type=click.Path(exists=True, path_type=Path))
-@click.option("--key", "keys", multiple=True, required=True, type=click.Path(exists=True, dir_okay=False, path_type=Path),
-              help="Trusted public key (PEM) of the package; repeatable.")
+@trusted_keys_option()
 @click.option("--frame", required=True, type=click.IntRange(min=0), help="Frame index, 0-based, in decode order.")
-@click.option("--out", required=True, type=click.Path(dir_okay=False, path_type=Path), help="Proof file to write (must not exist).")
+@click.option("--out", required=True, type=click.Path(dir_okay=False, path_type=Path),
+              help="The proof, a file to write (JSON; must not exist).")
+@click.option("--json", "as_json", is_flag=True, help="Print one JSON document on stdout.")
 @library_errors
-def frame_proof(package: Path, keys: tuple[Path, ...], frame: int, out: Path) -> None:
+def frame_proof(package: Path, trusted_keys: tuple[Path, ...], frame: int, out: Path, as_json: bool) -> None:
     """Write an RFC 6962 inclusion proof that frame N belongs to the package's signed source."""
     from redact.errors import OutputError
     from redact.provenance import merkle
 
-    result, digests = _verified_frames(package, keys)
+    result, digests = _verified_frames(package, trusted_keys)
     src = result.predicate.get("source", {})
     proof = merkle.make_frame_proof(digests, frame, src.get("sha256") if isinstance(src, dict) else None)
     if os.path.lexists(out):
@@ -64,25 +65,29 @@ def frame_proof(package: Path, keys: tuple[Path, ...], frame: int, out: Path) ->
         os.replace(tmp, out)
     except OSError as e:
         raise OutputError(f"cannot write {out}: {e.strerror or e}") from None
+    if as_json:
+        echo_json({"proof": str(out), "frame": frame, "tree_size": proof.size, "root": proof.root.hex(),
+                   "key_id": result.key_id})
+        return
     click.echo(f"proof for frame {frame} of {proof.size}: {out}", err=True)
     click.echo(str(out))
 
 
 @main.command("frame-check", epilog="""\b
 Example:
-  redact frame-check frame-1200.proof.json --package out/package --key steward.public.pem
+  redact frame-check frame-1200.proof.json --package out/package --trusted-key steward.public.pem
   redact frame-check frame-1200.proof.json --root 5dc9da79... --frame-digest 0f1e...
 
 Exit status: 0 the proof holds, 1 it does not (every reason is listed), 2 usage error.""")
 @click.argument("proof_file", type=click.Path(exists=True, dir_okay=False, path_type=Path))
 @click.option("--package", type=click.Path(exists=True, path_type=Path), help="The signed package holding the root.")
-@click.option("--key", "keys", multiple=True, type=click.Path(exists=True, dir_okay=False, path_type=Path),
-              help="Trusted public key (PEM) of the package; repeatable; required with --package.")
+@trusted_keys_option(required=False, help="Trusted public key, a file (NAME.public.pem) of the package; "
+                                           "repeatable; required with --package.")
 @click.option("--root", "root_hex", help="Instead of --package: the signed frames_root (64 hex digits) you trust.")
 @click.option("--frame-digest", "digest_hex", help="The digest you computed for the frame; must equal the proof's.")
 @click.option("--json", "as_json", is_flag=True, help="Print one JSON document on stdout.")
 @library_errors
-def frame_check(proof_file: Path, package: Path | None, keys: tuple[Path, ...], root_hex: str | None,
+def frame_check(proof_file: Path, package: Path | None, trusted_keys: tuple[Path, ...], root_hex: str | None,
                 digest_hex: str | None, as_json: bool) -> None:
     """Check that PROOF_FILE shows its frame is a leaf of a signed frames_root."""
     from redact.errors import InputError
@@ -90,9 +95,9 @@ def frame_check(proof_file: Path, package: Path | None, keys: tuple[Path, ...], 
 
     hex64 = re.compile(r"[0-9a-f]{64}")
     if (package is None) == (root_hex is None):
-        raise InputError("give either --package with --key, or --root")
-    if package is not None and not keys:
-        raise InputError("--package needs at least one --key")
+        raise InputError("give either --package with --trusted-key, or --root")
+    if package is not None and not trusted_keys:
+        raise InputError("--package needs at least one --trusted-key")
     for name, v in (("--root", root_hex), ("--frame-digest", digest_hex)):
         if v is not None and not hex64.fullmatch(v):
             raise InputError(f"{name} must be 64 lowercase hex digits")
@@ -101,7 +106,7 @@ def frame_check(proof_file: Path, package: Path | None, keys: tuple[Path, ...], 
     proof = merkle.FrameProof.from_json(proof_file.read_bytes(), proof_file.name)
     size = None
     if package is not None:
-        result, digests = _verified_frames(package, keys)
+        result, digests = _verified_frames(package, trusted_keys)
         src = result.predicate.get("source", {})
         root_hex = src.get("frames_root") if isinstance(src, dict) else None
         if root_hex is None:

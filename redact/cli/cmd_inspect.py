@@ -8,32 +8,33 @@ import click
 
 from redact.cli import main
 from redact.cli.common import echo_json, library_errors
+from redact.cli.keyfiles import load_trusted_keys, trusted_keys_option
 
 
 @main.command("inspect", epilog="""\b
 Example:
-  redact inspect out/package --key steward.public.pem
+  redact inspect out/package --trusted-key steward.public.pem
   redact inspect out/package.tar --json
 
-Without --key the summary is read from an UNVERIFIED package: run `redact verify` before relying
+Without --trusted-key the summary is read from an UNVERIFIED package: run `redact verify` before relying
 on it. Skeleton data is pseudonymised, not anonymous: handle the package as personal data.""")
 @click.argument("package", type=click.Path(exists=True, path_type=Path))
-@click.option("--key", "keys", multiple=True, type=click.Path(exists=True, dir_okay=False, path_type=Path),
-              help="Trusted public key (PEM); when given, the package is verified first.")
+@trusted_keys_option(required=False, help="Trusted public key, a file (NAME.public.pem); when given, the package "
+                                           "is verified first. Repeat for several.")
 @click.option("--json", "as_json", is_flag=True, help="Print one JSON document on stdout.")
 @library_errors
-def inspect(package: Path, keys: tuple[Path, ...], as_json: bool) -> None:
+def inspect(package: Path, trusted_keys: tuple[Path, ...], as_json: bool) -> None:
     """Summarise PACKAGE: source, model, key id, counts of frames/people/tracks, flagged ranges."""
     from redact.provenance.package import summarise_package
-    from redact.provenance.signing import load_public_key
 
-    trusted = [load_public_key(k) for k in keys]
+    trusted = load_trusted_keys(trusted_keys)
     summary = summarise_package(package, trusted or None)
     if as_json:
         echo_json(summary)
         return
     if not summary["verified"]:
-        click.echo("warning: NOT VERIFIED (no --key given); run `redact verify` before relying on this", err=True)
+        click.echo("warning: NOT VERIFIED (no --trusted-key given); run `redact verify` before relying on this",
+                   err=True)
     src, model, counts = summary["source"], summary["model"], summary["counts"]
     click.echo(f"package:  {package} ({'verified' if summary['verified'] else 'unverified'})")
     click.echo(f"key id:   {summary['key_id']}")

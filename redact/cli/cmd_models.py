@@ -33,6 +33,8 @@ def models_command(as_json: bool) -> None:
     if as_json:
         echo_json({"models": rows})
     else:
+        click.echo(f"{'id':<26} {'task':<15} {'licence':<11} {'source (package version)':<26} "
+                   f"{'sha256':<17}  check")
         for r in rows:
             click.echo(f"{r['id']:<26} {r['task']:<15} {r['licence']:<11} {r['source']:<26} "
                        f"{r['sha256'][:16]}…  {r['status']}")

@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import os
 import sys
-import time
 from datetime import UTC, datetime
 from pathlib import Path
 
@@ -13,40 +12,20 @@ import click
 from redact.cli import CAUTION, main
 from redact.cli.cmd_keys import PASSPHRASE_ENV, read_passphrase
 from redact.cli.common import echo_json, library_errors
+from redact.cli.keyfiles import check_signing_key, public_key_beside, signing_key_option
 from redact.cli.options import disclosure_options, pipeline_options
 from redact.cli.privacy_options import privacy_options
-from redact.errors import InputError
+from redact.cli.progress import FrameProgress
+from redact.errors import InputError, OutputError
 
 DEMO_PASSPHRASE = "demo only - not a secret"
+REPORT_NAME = "report.html"
 
 
-class _Progress:
-    """A progress line on stderr with frames/s and ETA (stdout stays for results)."""
-
-    def __init__(self, quiet: bool):
-        self.quiet = quiet
-        self.start = time.perf_counter()
-        self.last = 0.0
-        self.tty = sys.stderr.isatty()
-
-    def __call__(self, done: int, total: int) -> None:
-        now = time.perf_counter()
-        if self.quiet or (now - self.last < (0.25 if self.tty else 5.0) and done != total):
-            return
-        self.last = now
-        fps = done / max(now - self.start, 1e-9)
-        eta = max(total - done, 0) / fps if fps > 0 else 0.0
-        pct = 100.0 * done / total if total else 0.0
-        line = f"frame {done}/{total} ({pct:5.1f} %)  {fps:5.1f} frames/s  ETA {eta:5.0f} s"
-        click.echo(("\r" + line) if self.tty else line, err=True, nl=not self.tty)
-
-    def close(self) -> None:
-        if self.tty and not self.quiet:
-            click.echo("", err=True)
-
-
-def _summary(result) -> dict:
+def _summary(result, report: Path | None = None, open_first: list[dict] | None = None) -> dict:
     return {
+        "report": None if report is None else str(report),
+        "open_first": open_first or [],
         "video": str(result.video), "package": str(result.package), "frames": result.frames,
         "tracks": result.tracks, "fault_frames": len(result.fault_frames),
         "review_ranges": [{"frames": [r.frame_start, r.frame_end], "seconds": [r.t_start, r.t_end],
@@ -71,11 +50,67 @@ def _print_summary(result) -> None:
         click.echo("no range flagged; a person must still review the whole video before disclosure")
 
 
+def _check_report_free(out: Path, write_report: bool) -> Path | None:
+    """OUT/report.html, refused up front when it already exists (outputs are never overwritten)."""
+    if not write_report:
+        return None
+    report = out / REPORT_NAME
+    if os.path.lexists(report):
+        raise OutputError(f"{report} already exists; choose a new --out (outputs are never overwritten)")
+    return report
+
+
+def _write_report(report: Path, result, signer) -> None:
+    """The disclosure report of the run's package, checked with the key that just signed it, written
+    through a hidden temporary name and linked into place (never over an existing file)."""
+    from redact.report.document import build_report
+
+    data = build_report(result.package, [signer.public_key], video=result.video)
+    tmp = report.with_name(f".{report.name}.tmp-{os.getpid()}")
+    try:
+        with open(tmp, "xb") as f:
+            f.write(data)
+            f.flush()
+            os.fsync(f.fileno())
+        os.link(tmp, report)
+    except FileExistsError:
+        raise OutputError(f"{report} appeared while the report was written; it was left as it is") from None
+    except OSError as e:
+        raise OutputError(f"cannot write {report}: {e.strerror or e}") from None
+    finally:
+        if os.path.lexists(tmp):
+            os.unlink(tmp)
+
+
+def open_first(result, report: Path | None, public_key: str) -> list[dict]:
+    """What to open after a run, in order: the report, the redacted copy, the package, its check."""
+    items = []
+    if report is not None:
+        items.append({"open": str(report), "why": "the disclosure report: signature status, flagged ranges, cautions"})
+    items += [
+        {"open": str(result.video), "why": "the redacted copy; step through the review ranges, then watch it all"},
+        {"open": f"redact inspect {result.package}", "why": "what the package holds"},
+        {"open": f"redact verify {result.package} --trusted-key {public_key} --video {result.video}",
+         "why": "check the signature and every file, as a recipient would"},
+    ]
+    return items
+
+
+def _print_open_first(items: list[dict]) -> None:
+    click.echo("")
+    click.echo("Open first:")
+    for n, item in enumerate(items, 1):
+        click.echo(f"  {n}. {item['open']}  - {item['why']}")
+    click.echo(f"\n{CAUTION}")
+
+
 def _run(source: Path, out: Path, signer, settings, disclosure, as_json: bool, quiet: bool, privacy=None,
-         audit: bool = False, plan: Path | None = None):
+         audit: bool = False, plan: Path | None = None, write_report: bool = True,
+         public_key: str = "NAME.public.pem"):
     from redact.pipeline import process_video
 
-    progress = _Progress(quiet or as_json)
+    report = _check_report_free(out, write_report)
+    progress = FrameProgress(quiet or as_json)
     try:
         result = process_video(source, out, signer, settings, disclosure=disclosure, privacy=privacy,
                                progress=progress, audit=audit, plan=plan)
@@ -84,10 +119,14 @@ def _run(source: Path, out: Path, signer, settings, disclosure, as_json: bool, q
     if result.stopped_early:
         click.echo(f"warning: the source is damaged; {result.stopped_early}; only those frames were processed",
                    err=True)
+    if report is not None:
+        _write_report(report, result, signer)
+    items = open_first(result, report, public_key)
     if as_json:
-        echo_json(_summary(result))
+        echo_json(_summary(result, report, items))
     else:
         _print_summary(result)
+        _print_open_first(items)
     if result.audit is not None:
         a = result.audit
         verdict = "passed" if a["passed"] else "FOUND SOMETHING"
@@ -103,18 +142,19 @@ def _run(source: Path, out: Path, signer, settings, disclosure, as_json: bool, q
 @main.command("process", epilog=f"""\b
 Example:
   redact keygen --out-dir keys --name steward
-  redact process lobby.mp4 --out lobby-redacted --key keys/steward.private.pem \\
+  redact process lobby.mp4 --out lobby-redacted --signing-key keys/steward.private.pem \\
       --recipient "J. Doe" --purpose "subject access request"
 
 The key passphrase is read from ${PASSPHRASE_ENV} or prompted (hidden).
-Outputs: OUT/redacted.mp4 and OUT/package/ (signed, skeleton-only). Nothing in OUT is
-overwritten; an interrupted run leaves only a hidden .redact-partial-* folder.
+Outputs in the folder OUT: redacted.mp4, package/ (signed, skeleton-only) and report.html (the
+disclosure report; --no-report leaves it out). Nothing in OUT is overwritten; an interrupted run
+leaves only a hidden .redact-partial-* folder. The run ends with what to open first.
 
 {CAUTION}""")
 @click.argument("source", type=click.Path(path_type=Path, dir_okay=True))
-@click.option("--out", "out", required=True, type=click.Path(path_type=Path), help="Output folder (created if missing).")
-@click.option("--key", "key", required=True, type=click.Path(path_type=Path),
-              help="Private signing key (PKCS#8 PEM from `redact keygen`).")
+@click.option("--out", "out", required=True, type=click.Path(path_type=Path),
+              help="Output folder (created if missing).")
+@signing_key_option()
 @pipeline_options
 @privacy_options
 @disclosure_options
@@ -126,11 +166,13 @@ overwritten; an interrupted run leaves only a hidden .redact-partial-* folder.
               help="After redacting, scan the redacted video and the source with independent detectors "
                    "(a face detector and the pose model at a larger size); exit 1 if anything is found. "
                    "A clean audit does not replace human review.")
+@click.option("--no-report", "no_report", is_flag=True,
+              help="Do not write the disclosure report OUT/report.html (written by default).")
 @click.option("--json", "as_json", is_flag=True, help="Print one JSON summary on stdout.")
 @click.option("--quiet", is_flag=True, help="No progress line.")
 @library_errors
-def process(source: Path, out: Path, key: Path, settings, privacy, disclosure, plan: Path | None, audit: bool,
-            as_json: bool, quiet: bool) -> None:
+def process(source: Path, out: Path, signing_key: Path, settings, privacy, disclosure, plan: Path | None, audit: bool,
+            no_report: bool, as_json: bool, quiet: bool) -> None:
     """Obscure every person in a video and write a signed skeleton-only package.
 
     Each person is tracked and obscured in every frame, including frames where the detector
@@ -141,10 +183,9 @@ def process(source: Path, out: Path, key: Path, settings, privacy, disclosure, p
 
     if not source.exists():
         raise InputError(f"{source}: no such file")
-    if not key.is_file():
-        raise InputError(f"--key {key}: no such key file (create one with `redact keygen`)")
-    signer = load_private_key(key, read_passphrase(confirm=False))
-    _run(source, out, signer, settings, disclosure, as_json, quiet, privacy=privacy, audit=audit, plan=plan)
+    signer = load_private_key(check_signing_key(signing_key), read_passphrase(confirm=False))
+    _run(source, out, signer, settings, disclosure, as_json, quiet, privacy=privacy, audit=audit, plan=plan,
+         write_report=not no_report, public_key=public_key_beside(signing_key))
 
 
 def demo_clip() -> Path:
@@ -163,44 +204,37 @@ Example:
   redact demo --out demo-output
 
 The demo signs with a throw-away key made for this run (passphrase "{DEMO_PASSPHRASE}");
-use `redact keygen` and `redact process --key` for real material.
+use `redact keygen` and `redact process --signing-key` for real material.
 
 {CAUTION}""")
 @click.option("--out", "out", type=click.Path(path_type=Path), default=None,
               help="Output folder (default: redact-demo-output/<UTC time>).")
 @click.option("--clip", type=click.Path(path_type=Path, exists=True, dir_okay=False), default=None,
               help="Another clip to run the demo on.")
+@signing_key_option(required=False, help="Sign with this private key, a file (NAME.private.pem) instead of "
+                                         "a throw-away key made for the demo.")
 @pipeline_options
 @click.option("--json", "as_json", is_flag=True, help="Print one JSON summary on stdout.")
 @click.option("--quiet", is_flag=True, help="No progress line.")
 @library_errors
-def demo(out: Path | None, clip: Path | None, settings, as_json: bool, quiet: bool) -> None:
+def demo(out: Path | None, clip: Path | None, signing_key: Path | None, settings, as_json: bool,
+         quiet: bool) -> None:
     """Run the whole job on the invented demo scene and say what to open first."""
     from redact.provenance.signing import generate_key, load_private_key
 
     source = clip or demo_clip()
     out = out or Path("redact-demo-output") / datetime.now(UTC).strftime("%Y%m%dT%H%M%SZ")
-    keys = out / "demo-key"
-    keys.mkdir(parents=True, exist_ok=True)
-    private, public = keys / "demo.private.pem", keys / "demo.public.pem"
-    if not private.exists():
-        generate_key(private, public, DEMO_PASSPHRASE.encode())
-    signer = load_private_key(private, DEMO_PASSPHRASE.encode())
+    if signing_key is not None:
+        signer = load_private_key(check_signing_key(signing_key), read_passphrase(confirm=False))
+        public_key = public_key_beside(signing_key)
+    else:
+        keys = out / "demo-key"
+        keys.mkdir(parents=True, exist_ok=True)
+        private, public = keys / "demo.private.pem", keys / "demo.public.pem"
+        if not private.exists():
+            generate_key(private, public, DEMO_PASSPHRASE.encode())
+        signer = load_private_key(private, DEMO_PASSPHRASE.encode())
+        public_key = str(public)
     disclosure = {"recipient": "demo recipient", "organisation": "demo", "purpose": "demonstration of redact",
                   "date": datetime.now(UTC).date().isoformat()}
-    result = _run(source, out, signer, settings, disclosure, as_json, quiet)
-    from redact.provenance.signing import load_public_key
-    from redact.report.document import build_report
-
-    report = out / "report.html"
-    tmp = out / ".report.html.partial"
-    tmp.write_bytes(build_report(result.package, [load_public_key(public)], video=result.video))
-    os.replace(tmp, report)
-    if not as_json:
-        click.echo("")
-        click.echo("Open first:")
-        click.echo(f"  1. {report}  - the disclosure report: signature status, flagged ranges, cautions")
-        click.echo(f"  2. {result.video}  - the redacted copy; step through the review ranges above")
-        click.echo(f"  3. redact inspect {result.package}  - what the package holds")
-        click.echo(f"  4. redact verify {result.package} --key {public} --video {result.video}")
-        click.echo(f"\n{CAUTION}")
+    _run(source, out, signer, settings, disclosure, as_json, quiet, public_key=public_key)

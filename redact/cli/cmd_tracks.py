@@ -22,7 +22,7 @@ Example:
   redact tracks lobby.mp4 --out lobby-sheet
   # look at lobby-sheet/track-*.png, find the requester, then:
   cp lobby-sheet/plan-template.json plan.json   # add the id(s) to keep_visible
-  redact process lobby.mp4 --out lobby-redacted --key keys/steward.private.pem --plan plan.json
+  redact process lobby.mp4 --out lobby-redacted --signing-key keys/steward.private.pem --plan plan.json
 
 Use exactly the same detection and tracking options (--score-threshold, --input-size,
 --coast-seconds) as the later `redact process` run: track ids are only valid for the same video
@@ -33,7 +33,7 @@ Tracking makes mistakes (one person can get two ids; ids can swap when people cr
 every picture, and review the redacted copy before disclosure.""")
 @click.argument("source", type=click.Path(path_type=Path))
 @click.option("--out", "out", required=True, type=click.Path(path_type=Path),
-              help="New folder for the sheet (must not exist).")
+              help="The sheet, a new folder to create (must not exist).")
 @pipeline_options
 @click.option("--json", "as_json", is_flag=True, help="Print the track list as one JSON document on stdout.")
 @library_errors

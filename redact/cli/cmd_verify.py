@@ -9,6 +9,7 @@ import click
 
 from redact.cli import main
 from redact.cli.common import echo_json, library_errors
+from redact.cli.keyfiles import load_trusted_keys, trusted_keys_option
 from redact.errors import InputError, VerificationFailed
 
 PSEUDONYMISED = ("Caution: a valid package proves integrity and origin, not that sharing it is lawful. "
@@ -58,9 +59,7 @@ Exit status: 0 valid, 1 invalid (every finding is listed), 2 usage error (also w
 an output folder: verify the package inside it).
 Skeleton data is pseudonymised, not anonymous: a valid signature does not make it safe to publish.""")
 @click.argument("package", type=click.Path(exists=True, path_type=Path))
-@click.option("--trusted-key", "--key", "trusted_keys", multiple=True, required=True,
-              type=click.Path(exists=True, dir_okay=False, path_type=Path),
-              help="Trusted public key (PEM); repeat for several. At least one is required.")
+@trusted_keys_option()
 @click.option("--require-signer", "required", multiple=True,
               type=click.Path(exists=True, dir_okay=False, path_type=Path),
               help="Public key (PEM) that must be among the signers, e.g. a countersigner; trusted too. Repeatable.")
@@ -69,28 +68,32 @@ Skeleton data is pseudonymised, not anonymous: a valid signature does not make i
 @click.option("--video", type=click.Path(exists=True, dir_okay=False, path_type=Path),
               help="The redacted video: it must match the signed redacted-video subject.")
 @click.option("--json", "as_json", is_flag=True, help="Print one JSON document on stdout.")
+@click.option("--quiet", "-q", is_flag=True, help="Print nothing; the exit status alone gives the result.")
 @library_errors
 def verify(package: Path, trusted_keys: tuple[Path, ...], required: tuple[Path, ...], source: Path | None,
-           video: Path | None, as_json: bool) -> None:
+           video: Path | None, as_json: bool, quiet: bool) -> None:
     """Verify PACKAGE (a directory or .tar): signatures first, then every file, the log and options.
 
     The signatures are checked over the exact signed bytes before anything is parsed; then the
     file set must be exactly the signed one, every SHA-256 must match, the transform log chain
     must be intact, and --source / --video must match when given.
     """
-    from redact.provenance.signing import load_public_key
     from redact.provenance.verify import verify_package
 
+    if quiet and as_json:
+        raise click.UsageError("give either --json or --quiet, not both")
     inner = output_folder_package(package)
     if inner is not None:
         hint = f" --video {package / 'redacted.mp4'}" if (package / "redacted.mp4").is_file() else ""
         raise InputError(f"{package} is an output folder, not a package; verify the package inside it: "
                          f"redact verify {inner} --trusted-key …{hint}")
-    trusted = [load_public_key(k) for k in trusted_keys]
-    must = [load_public_key(k) for k in required]
+    trusted = load_trusted_keys(trusted_keys)
+    must = load_trusted_keys(required, "--require-signer")
     try:
         result = verify_package(package, trusted, source=source, video=video, required_signers=must)
     except VerificationFailed as e:
+        if quiet:
+            sys.exit(1)
         if as_json:
             echo_json({"valid": False, "package": str(package), "findings": e.findings})
         else:
@@ -98,6 +101,8 @@ def verify(package: Path, trusted_keys: tuple[Path, ...], required: tuple[Path, 
             for f in e.findings:
                 click.echo(f"  - {f}")
         sys.exit(1)
+    if quiet:
+        return
     src = result.predicate.get("source") if isinstance(result.predicate.get("source"), dict) else {}
     signers = _signer_lines(result)
     if as_json:

@@ -77,7 +77,7 @@ def verify_package(path: Path, trusted_keys: Sequence[signing.PublicKey], source
     """
     keys = list(trusted_keys) + [k for k in required_signers if k not in trusted_keys]
     if not keys:
-        raise InputError("no trusted public key given; pass at least one --trusted-key PUB.pem")
+        raise InputError("no trusted public key given; pass at least one --trusted-key NAME.public.pem")
     for p, what in ((source, "source file"), (video, "redacted video")):
         if p is not None and not Path(p).is_file():
             raise InputError(f"{what} {p} does not exist")

@@ -23,7 +23,7 @@ import numpy as np
 from redact import __version__, jsonio
 from redact.errors import InputError, PackageError, VerificationFailed
 from redact.provenance.log import DISCLOSURE_FIELDS, utc_now
-from redact.provenance.package import LOG, QUALITY, REVIEW, open_package, read_statement_unverified
+from redact.provenance.package import ENVELOPE, LOG, QUALITY, REVIEW, SKELETONS, open_package, read_statement_unverified
 from redact.report.plots import Timeline, data_uri, redacted_frames, thumbnail_jpeg, timeline_svg
 
 #: Most review ranges that get a thumbnail (keeps the page printable; common practice).
@@ -516,6 +516,25 @@ def _references_section() -> str:
     return f'<section id="references"><h2>References</h2><ul>{items}</ul></section>'
 
 
+def _package_label(package: Path) -> str:
+    """How the header names the package: its folder and name ("lobby-out/package"), since a bare
+    "package" says nothing (and read "from package package")."""
+    p = Path(package).absolute()
+    return f"{p.parent.name}/{p.name}" if p.parent.name else p.name
+
+
+def _check_is_package(package: Path) -> None:
+    """InputError when `package` holds none of a package's own files (a wrong folder, not a damaged
+    package: a damaged one still gets a report that says what is wrong with it)."""
+    try:
+        with open_package(package) as reader:
+            if not {ENVELOPE, SKELETONS, LOG} & set(reader.files):
+                raise InputError(f"{package}: not a package (it holds none of {ENVELOPE}, {SKELETONS}, {LOG}); "
+                                 "nothing was written")
+    except PackageError as e:
+        raise InputError(f"{package}: not a readable package ({e}); nothing was written") from None
+
+
 def make_report(package: Path, trusted_keys: list, video: Path | None = None,
                 source: Path | None = None) -> DisclosureReport:
     """Verify `package` with `trusted_keys` (and the --source / --video files when given) and
@@ -529,7 +548,8 @@ def make_report(package: Path, trusted_keys: list, video: Path | None = None,
     if not package.is_dir() and not package.is_file():
         raise InputError(f"{package}: no such package (expected a directory or a .tar file)")
     if not trusted_keys:
-        raise InputError("no trusted public key given; pass at least one --key PUB.pem")
+        raise InputError("no trusted public key given; pass at least one --trusted-key NAME.public.pem")
+    _check_is_package(package)
     try:
         result = verify_package(package, trusted_keys, source=source, video=video)
         verified, key_id, checked, findings = True, result.key_id, result.checked, ()
@@ -558,7 +578,7 @@ def make_report(package: Path, trusted_keys: list, video: Path | None = None,
     problems = "".join(f"<li>{esc(p)}</li>" for p in contents.problems)
     body = [
         f"<header><h1>{esc(title)}</h1><p class=\"sub\">Report generated {esc(utc_now())} by redact "
-        f"{esc(__version__)} from package <span class=\"mono\">{esc(package.name)}</span>.</p></header>",
+        f"{esc(__version__)} from the package <span class=\"mono\">{esc(_package_label(package))}</span>.</p></header>",
         _status_section(verified, key_id, checked, findings, video, source),
         (f'<div class="status bad"><p><b>Parts of the package could not be read:</b></p><ul>{problems}</ul></div>'
          if problems else ""),
