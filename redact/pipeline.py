@@ -60,11 +60,11 @@ class ProcessSettings:
     coast_seconds: float = 1.5
     lookback_seconds: float = 0.5
     detect_every: int = 1
-    keep_audio: bool = False
+    include_audio: bool = False
     archive: bool = False
     threads: int | None = None
     crf: int = 20
-    plate_samples: int = 32
+    background_samples: int = 32
 
     def __post_init__(self) -> None:
         if not 0 <= self.coast_seconds <= 60:
@@ -264,9 +264,9 @@ class _FrameFinisher:
     """Everything after tracking for one frame, in frame order: obscure (failing closed), look
     back, hand to the encoder, write the skeleton row, the quality line and the frame digest."""
 
-    def __init__(self, settings, plate, obscurer, lookback, monitor, stats, encode, skel, qual, frames_out,
+    def __init__(self, settings, background, obscurer, lookback, monitor, stats, encode, skel, qual, frames_out,
                  progress, expected: int):
-        self.settings, self.plate, self.obscurer = settings, plate, obscurer
+        self.settings, self.background, self.obscurer = settings, background, obscurer
         self.lookback, self.monitor, self.stats, self.encode = lookback, monitor, stats, encode
         self.skel, self.qual, self.frames_out = skel, qual, frames_out
         self.progress, self.expected = progress, expected
@@ -275,12 +275,13 @@ class _FrameFinisher:
         style = self.settings.render
         every = self.settings.detect_every
         if decision is None:
-            out = render_frame(frame.image, tracks, style, plate=self.plate, obscurer=self.obscurer, detect_every=every)
+            out = render_frame(frame.image, tracks, style, background=self.background, obscurer=self.obscurer,
+                               detect_every=every)
             return out, tracks, ()
         extra = ("kept_overlap",) if decision.overlap_ids else ()
         if decision.whole_frame:
             return obscure_all(frame.image), decision.obscure, extra
-        out = render_frame(frame.image, decision.obscure, style, plate=self.plate, obscurer=self.obscurer,
+        out = render_frame(frame.image, decision.obscure, style, background=self.background, obscurer=self.obscurer,
                            detect_every=every)
         if decision.mask is not None:
             out = self.obscurer.apply(out, decision.mask)
@@ -311,13 +312,13 @@ class _FrameFinisher:
             self.progress(frame.index + 1, self.expected)
 
 
-def _build_plate(source: Path, estimator: PoseEstimator, settings: ProcessSettings):
-    """A background plate from a first pass: sampled frames, people masked out (see redact.redaction.plate)."""
+def _build_background(source: Path, estimator: PoseEstimator, settings: ProcessSettings):
+    """The empty scene from a first pass: sampled frames, people masked out (see redact.redaction.background)."""
     from redact.media.video import VideoReader
-    from redact.redaction.plate import PlateBuilder
+    from redact.redaction.background import BackgroundBuilder
     from redact.redaction.regions import people_mask
 
-    builder = PlateBuilder(max_samples=settings.plate_samples)
+    builder = BackgroundBuilder(max_samples=settings.background_samples)
     with VideoReader(source, hash_file=False) as reader:
         for frame in reader.frames():
             if builder.wants_next():
@@ -365,8 +366,8 @@ def process_video(source: str | Path, out_dir: str | Path, signer, settings: Pro
     if estimator is None:
         estimator = PoseEstimator.default(settings.pose, settings.model_threads)  # hash check before output
     tracker_cfg = tracker_config_for(settings, float(info.fps))
-    plate = _build_plate(source, estimator, settings) if settings.render.style == "plate" else None
-    obscurer = obscurer_for(settings.render, plate)
+    background = _build_background(source, estimator, settings) if settings.render.style == "background" else None
+    obscurer = obscurer_for(settings.render, background)
 
     try:
         out_dir.mkdir(parents=True, exist_ok=True)
@@ -375,13 +376,13 @@ def process_video(source: str | Path, out_dir: str | Path, signer, settings: Pro
         raise OutputError(f"cannot write to {out_dir}: {e.strerror or e}") from None
     try:
         return _run(source, info, out_dir, staging, video_final, pkg_final, signer, settings, tracker_cfg,
-                    estimator, entry, obscurer, plate, disclosure, privacy, progress, started, audit, plan_obj)
+                    estimator, entry, obscurer, background, disclosure, privacy, progress, started, audit, plan_obj)
     finally:
         shutil.rmtree(staging, ignore_errors=True)
 
 
 def _run(source, info, out_dir, staging, video_final, pkg_final, signer, settings, tracker_cfg, estimator,
-         entry, obscurer, plate, disclosure, privacy, progress, started, audit, plan):
+         entry, obscurer, background, disclosure, privacy, progress, started, audit, plan):
     """The streaming pass and the packaging, inside the staging folder (see process_video)."""
     from redact.media.video import VideoReader, VideoWriter, copy_audio
 
@@ -394,8 +395,9 @@ def _run(source, info, out_dir, staging, video_final, pkg_final, signer, setting
                threads=settings.model_threads, frames_at_once=settings.model_frames)
     log.append("detection", **asdict(settings.pose), detect_every=settings.detect_every)
     log.append("tracking", **asdict(tracker_cfg), coast_seconds=settings.coast_seconds)
-    if plate is not None:
-        log.append("plate", samples=settings.plate_samples, valid_fraction=round(float(plate.valid.mean()), 4))
+    if background is not None:
+        log.append("background", samples=settings.background_samples,
+                   valid_fraction=round(float(background.valid.mean()), 4))
 
     tracker = Tracker(tracker_cfg)
     monitor = QualityMonitor(settings.review)
@@ -409,7 +411,7 @@ def _run(source, info, out_dir, staging, video_final, pkg_final, signer, setting
             open(pkg_dir / package.SKELETONS, "wb") as skel, \
             open(pkg_dir / package.QUALITY, "wb") as qual, \
             open(pkg_dir / package.FRAMES, "wb") as frames_out:
-        finisher = _FrameFinisher(settings, plate, obscurer, lookback, monitor, stats, encoder.submit,
+        finisher = _FrameFinisher(settings, background, obscurer, lookback, monitor, stats, encoder.submit,
                                   skel, qual, frames_out, progress, info.frames)
         # Detection may run on several frames at once; tracking stays here, in frame order.
         # Rendering, the look-back, rows and quality run in one thread behind, overlapping the
@@ -455,12 +457,13 @@ def _run(source, info, out_dir, staging, video_final, pkg_final, signer, setting
     if privacy is not None:
         _apply_privacy(pkg_dir, privacy, info, log)
 
-    if settings.keep_audio and info.has_audio:
+    if settings.include_audio and info.has_audio:
         with_audio = staging / ("audio-" + VIDEO_NAME)
         copy_audio(video_tmp, source, with_audio)
         os.replace(with_audio, video_tmp)
     log.append("encode", codec="h264", encoder="libx264", crf=settings.crf, frames=writer.frames_written,
-               audio="kept" if (settings.keep_audio and info.has_audio) else ("dropped" if info.has_audio else "none"),
+               audio=("included" if (settings.include_audio and info.has_audio)
+                      else ("dropped" if info.has_audio else "none")),
                container_metadata="not copied", source_metadata_keys=list(info.metadata_keys))
     audit_result = None
     if audit:

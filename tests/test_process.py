@@ -280,15 +280,15 @@ def _with_tags(src: Path, dst: Path) -> Path:
 
 @pytest.mark.parametrize("keep", [False, True])
 def test_audio_is_dropped_unless_asked_and_metadata_is_not_copied(clip_with_audio, tmp_path, keep):
-    """PyAV/FFmpeg reopens the output: an audio stream only with keep_audio; no source tags."""
+    """PyAV/FFmpeg reopens the output: an audio stream only with include_audio; no source tags."""
     src = _with_tags(clip_with_audio.path, tmp_path / "tagged.mp4")
     with av.open(str(src)) as c:
         assert c.metadata.get("title") == "Camera 7, north entrance"  # the tags are really there
-    result = process_video(src, tmp_path / "o", Signer.from_seed(SEED), ProcessSettings(keep_audio=keep))
+    result = process_video(src, tmp_path / "o", Signer.from_seed(SEED), ProcessSettings(include_audio=keep))
     with av.open(str(result.video)) as c:
         assert len(c.streams.audio) == (1 if keep else 0)
         assert not {"title", "comment", "creation_time", "encoder", "location"} & set(c.metadata)
         assert b"north entrance" not in result.video.read_bytes()
     log = [json.loads(line) for line in (result.package / "log.jsonl").read_text().splitlines()]
     enc = [e for e in log if e["kind"] == "encode"][0]
-    assert enc["audio"] == ("kept" if keep else "dropped") and enc["container_metadata"] == "not copied"
+    assert enc["audio"] == ("included" if keep else "dropped") and enc["container_metadata"] == "not copied"

@@ -17,7 +17,7 @@ from skimage import data
 from skimage.metrics import structural_similarity
 
 from redact.errors import RedactError
-from redact.redaction.plate import PlateBuilder
+from redact.redaction.background import BackgroundBuilder
 from redact.redaction.regions import people_mask
 from redact.redaction.render import (
     FIGURE_GREY,
@@ -82,8 +82,8 @@ def _ssim(a, b) -> float:
     return float(structural_similarity(a, b, channel_axis=2, data_range=255))
 
 
-def _clean_plate(img_shape):
-    b = PlateBuilder(max_samples=4)
+def _clean_background(img_shape):
+    b = BackgroundBuilder(max_samples=4)
     for _ in range(4):
         b.add(_background(), np.zeros(img_shape[:2], bool))
     return b.build()
@@ -106,8 +106,8 @@ def _blocks(src: np.ndarray, across: int) -> np.ndarray:
 def test_faces_unrecognisable_in_every_style(scene, style):
     img, tracks, faces = scene
     settings = RenderSettings(style=style)
-    plate = _clean_plate(img.shape) if style == "plate" else None
-    out = render_frame(img, tracks, settings, plate=plate)
+    empty = _clean_background(img.shape) if style == "background" else None
+    out = render_frame(img, tracks, settings, background=empty)
     for face in faces:
         src, got = _crop(img, face), _crop(out, face)
         mad = np.abs(got.astype(int) - src.astype(int)).mean()
@@ -129,8 +129,8 @@ def test_faces_unrecognisable_in_every_style(scene, style):
 def test_pixels_outside_every_region_are_unchanged(scene, style):
     img, tracks, _ = scene
     settings = RenderSettings(style=style, figure=True)
-    plate = _clean_plate(img.shape) if style == "plate" else None
-    out = render_frame(img, tracks, settings, plate=plate)
+    empty = _clean_background(img.shape) if style == "background" else None
+    out = render_frame(img, tracks, settings, background=empty)
     mask = people_mask(tracks, img.shape, settings.regions)
     assert mask.any() and (~mask).any()
     assert np.array_equal(out[~mask], img[~mask])
@@ -143,8 +143,8 @@ def test_input_is_never_written(scene, style):
     before = img.copy()
     ro = img.copy()
     ro.flags.writeable = False  # any write into the input raises
-    plate = _clean_plate(img.shape) if style == "plate" else None
-    out = render_frame(ro, tracks, RenderSettings(style=style, figure=True), plate=plate)
+    empty = _clean_background(img.shape) if style == "background" else None
+    out = render_frame(ro, tracks, RenderSettings(style=style, figure=True), background=empty)
     assert np.array_equal(ro, before) and np.array_equal(img, before)
     assert out.dtype == np.uint8 and out.shape == img.shape and out.flags.c_contiguous
     assert not np.shares_memory(out, ro)
@@ -220,7 +220,7 @@ def test_settings_are_checked():
     with pytest.raises(RedactError):
         RenderSettings(figure_threshold=1.5)
     with pytest.raises(RedactError):
-        obscurer_for(RenderSettings(style="plate"))  # a plate style without a plate
+        obscurer_for(RenderSettings(style="background"))  # the background style without an empty scene
     with pytest.raises(RedactError):
         render_frame(np.zeros((10, 10), np.uint8), Tracks.empty(), RenderSettings())
 

@@ -23,8 +23,9 @@ def pipeline_options(fn):
 
     @click.option("--style", type=click.Choice(STYLES), default="figure", show_default=True,
                   help="How people are obscured: figure = grey region with a stick figure drawn on it; "
-                       "blur; pixelate; fill = plain grey; plate = the empty scene (people masked out) "
-                       "with figures.")
+                       "blur; pixelate; fill = plain grey; background = the empty scene behind people (a "
+                       "median over the clip with people masked out, grey where never seen empty), with "
+                       "figures.")
     @click.option("--figures/--no-figures", default=False,
                   help="Also draw stick figures over blur, pixelate or fill.")
     @click.option("--margin", type=click.FloatRange(0, 2), default=0.15, show_default=True,
@@ -48,11 +49,12 @@ def pipeline_options(fn):
                        "cores but one). The count is recorded: skeletons are byte-identical only with "
                        "the same count.")
     @click.option("--crf", type=click.IntRange(0, 51), default=20, show_default=True, help="H.264 quality of the redacted video (lower is better).")
-    @click.option("--keep-audio", is_flag=True, help="Carry the source's audio into the redacted video (dropped by default: voices identify people).")
+    @click.option("--include-audio", is_flag=True,
+                  help="Carry the source's audio into the redacted video (dropped by default: voices identify people).")
     @click.option("--archive", is_flag=True, help="Write the package as one .tar instead of a folder.")
     @functools.wraps(fn)
     def wrapper(*args, style, figures, margin, coast_seconds, score_threshold, pose_model, input_size, detect_every, threads, crf,
-                keep_audio, archive, **kwargs):
+                include_audio, archive, **kwargs):
         if input_size % 32:
             raise click.BadParameter(f"must be a multiple of 32, got {input_size}", param_hint="--input-size")
         kwargs["settings"] = ProcessSettings(
@@ -60,7 +62,7 @@ def pipeline_options(fn):
             tracker=TrackerConfig(),
             render=RenderSettings(style=style, figure=figures, regions=RegionSettings(base_margin=margin)),
             review=ReviewRules(),
-            coast_seconds=coast_seconds, detect_every=detect_every, keep_audio=keep_audio, archive=archive, threads=threads, crf=crf,
+            coast_seconds=coast_seconds, detect_every=detect_every, include_audio=include_audio, archive=archive, threads=threads, crf=crf,
         )
         return fn(*args, **kwargs)
 

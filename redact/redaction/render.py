@@ -4,7 +4,7 @@ Images are RGB uint8 [H, W, 3], C-contiguous; masks bool [H, W]. Nothing here wr
 array it was given: every step returns a new image.
 
 Styles (our names): "figure" (solid grey fill with a stick figure on top), "blur", "pixelate",
-"fill", and "plate" (the scene's background plate where one exists, solid fill elsewhere).
+"fill", and "background" (the empty scene behind people where it is known, solid fill elsewhere).
 Blur and pixel blocks scale with each person's region so that faces become unrecognisable:
 weak blurs and small pixel blocks can be undone or recognised by machine learning
 (McPherson, Shokri, Shmatikov, "Defeating Image Obfuscation with Deep Learning", arXiv
@@ -22,12 +22,12 @@ import cv2
 import numpy as np
 
 from redact.errors import RedactError
-from redact.redaction.plate import Plate
+from redact.redaction.background import Background
 from redact.redaction.regions import RegionSettings, track_regions
 from redact.vision.records import Tracks
 from redact.vision.skeleton import LINKS
 
-STYLES: tuple[str, ...] = ("figure", "blur", "pixelate", "fill", "plate")
+STYLES: tuple[str, ...] = ("figure", "blur", "pixelate", "fill", "background")
 #: Neutral mid grey for solid fills; the same for everyone.
 FILL_GREY = 128
 #: One neutral light grey for every stick figure: no colour coding of people.
@@ -159,17 +159,17 @@ class Pixelate:
         np.copyto(out[y0:y1, x0:x1], big, where=sub_mask[:, :, None])
 
 
-class PlateFill:
-    """Show the background plate where it is valid; elsewhere use the fallback style."""
+class BackgroundFill:
+    """Show the empty scene (redact.redaction.background) where it is valid; elsewhere the fallback style."""
 
-    def __init__(self, plate: Plate, fallback: Obscurer | None = None):
-        self.plate = plate
+    def __init__(self, background: Background, fallback: Obscurer | None = None):
+        self.background = background
         self.fallback = fallback if fallback is not None else Fill()
-        self._sized: dict[tuple[int, int], Plate] = {}
+        self._sized: dict[tuple[int, int], Background] = {}
 
-    def _at(self, h: int, w: int) -> Plate:
+    def _at(self, h: int, w: int) -> Background:
         if (h, w) not in self._sized:
-            self._sized[(h, w)] = self.plate.resized(h, w)
+            self._sized[(h, w)] = self.background.resized(h, w)
         return self._sized[(h, w)]
 
     def apply(self, image: np.ndarray, mask: np.ndarray, size: float | None = None) -> np.ndarray:
@@ -180,8 +180,8 @@ class PlateFill:
         p = self._at(*out.shape[:2])
         valid = p.valid[y0:y1, x0:x1]
         self.fallback.apply_into(out, rect, sub_mask & ~valid, size)
-        use_plate = sub_mask & valid
-        np.copyto(out[y0:y1, x0:x1], p.image[y0:y1, x0:x1], where=use_plate[:, :, None])
+        use_scene = sub_mask & valid
+        np.copyto(out[y0:y1, x0:x1], p.image[y0:y1, x0:x1], where=use_scene[:, :, None])
 
 
 class StickFigure:
@@ -262,17 +262,17 @@ class RenderSettings:
         return self.style == "figure" or self.figure
 
 
-def obscurer_for(settings: RenderSettings, plate: Plate | None = None) -> Obscurer:
-    """The obscuring style named by settings.style. Style "plate" needs a plate."""
+def obscurer_for(settings: RenderSettings, background: Background | None = None) -> Obscurer:
+    """The obscuring style named by settings.style. Style "background" needs the empty scene."""
     if settings.style in ("figure", "fill"):
         return Fill()
     if settings.style == "blur":
         return Blur(settings.blur_fraction)
     if settings.style == "pixelate":
         return Pixelate(settings.pixel_blocks)
-    if plate is None:
-        raise RedactError("style 'plate' needs a background plate; build one first or choose another style")
-    return PlateFill(plate)
+    if background is None:
+        raise RedactError("style 'background' needs the empty scene; build it first or choose another style")
+    return BackgroundFill(background)
 
 
 def obscure_all(image: np.ndarray) -> np.ndarray:
@@ -282,17 +282,18 @@ def obscure_all(image: np.ndarray) -> np.ndarray:
 
 
 def render_frame(image: np.ndarray, tracks: Tracks, style: RenderSettings,
-                 plate: Plate | None = None, obscurer: Obscurer | None = None, detect_every: int = 1) -> np.ndarray:
+                 background: Background | None = None, obscurer: Obscurer | None = None,
+                 detect_every: int = 1) -> np.ndarray:
     """A new image: every tracked person's region obscured, then figures drawn when asked.
 
     image [H,W,3] uint8 RGB (never written into). Pass `obscurer` to reuse one across frames
-    (e.g. a PlateFill that caches its resized plate); otherwise it is made from `style`.
+    (e.g. a BackgroundFill that caches its resized scene); otherwise it is made from `style`.
     detect_every: the detection stride, so that style.figure_hold counts missed detections
     rather than frames. Raises RedactError on unusable input; the caller then uses obscure_all
     (fail closed).
     """
     img = _check_image(image)
-    ob = obscurer if obscurer is not None else obscurer_for(style, plate)
+    ob = obscurer if obscurer is not None else obscurer_for(style, background)
     out = np.ascontiguousarray(img).copy()
     for region in track_regions(tracks, img.shape, style.regions):
         if region.empty:

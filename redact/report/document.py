@@ -395,7 +395,7 @@ def _settings_section(pred: dict, rules: dict) -> str:
         ("Frames before a first detection also obscured (seconds)", params.get("lookback_seconds")),
         ("Minimum person score of the detector", pose.get("score_threshold")),
         ("Model input size (pixels, long side)", pose.get("input_long_side")),
-        ("Audio kept", params.get("keep_audio")),
+        ("Audio included", params.get("include_audio")),
         ("Skeleton de-identification options", "none" if privacy.get("options") == "none" else "see below"),
         ("Tool", f"{tool.get('name', '?')} {tool.get('version', '?')}"),
         ("Package created (UTC)", pred.get("created")),

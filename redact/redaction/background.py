@@ -1,12 +1,13 @@
-"""A background plate: the scene without its people, as a masked temporal median.
+"""The empty scene behind people (style "background"): the scene without its people, as a masked
+temporal median.
 
 Samples are spaced over the clip without knowing its length (keep every `stride`-th frame;
 when the store is full, drop every second sample and double the stride), downscaled so that
 memory stays bounded: at most max_samples × (max_side² × 3) bytes. Each pixel's median uses
 only the samples in which no person region covered it, so a person who stands still in every
-sample leaves that pixel *invalid*: the plate holds no scene there and the renderer must fall
+sample leaves that pixel *invalid*: the background holds no scene there and the renderer must fall
 back to another obscuring style. A person the detector missed in a sample is outvoted by the
-median only if they are absent from most samples: the plate is a convenience, not a guarantee,
+median only if they are absent from most samples: the background is a convenience, not a guarantee,
 and the redacted video must still be reviewed by a person.
 """
 
@@ -21,7 +22,7 @@ from redact.errors import RedactError
 
 
 @dataclass(frozen=True)
-class Plate:
+class Background:
     """image [h, w, 3] uint8 RGB (zero where invalid); valid [h, w] bool: a clean sample existed."""
 
     image: np.ndarray
@@ -31,25 +32,26 @@ class Plate:
         img = np.ascontiguousarray(self.image, np.uint8)
         val = np.ascontiguousarray(self.valid, bool)
         if img.ndim != 3 or img.shape[2] != 3 or val.shape != img.shape[:2]:
-            raise RedactError(f"plate: expected image [h,w,3] and valid [h,w], got {list(img.shape)} and {list(val.shape)}")
+            raise RedactError(f"background: expected image [h,w,3] and valid [h,w], got {list(img.shape)} "
+                              f"and {list(val.shape)}")
         img = np.where(val[:, :, None], img, 0).astype(np.uint8)  # never keep pixels without a clean sample
         img.flags.writeable = False
         val.flags.writeable = False
         object.__setattr__(self, "image", img)
         object.__setattr__(self, "valid", val)
 
-    def resized(self, height: int, width: int) -> Plate:
-        """The plate at frame size. A pixel stays valid only if every plate pixel it draws from is valid."""
+    def resized(self, height: int, width: int) -> Background:
+        """The background at frame size. A pixel stays valid only if every pixel it draws from is valid."""
         h, w = self.valid.shape
         if (h, w) == (height, width):
             return self
         img = cv2.resize(self.image, (width, height), interpolation=cv2.INTER_LINEAR)
         cover = cv2.resize(self.valid.astype(np.float32), (width, height), interpolation=cv2.INTER_LINEAR)
         # Bilinear weights sum to one: full cover means no invalid neighbour contributed.
-        return Plate(img, cover >= 1.0 - 1e-4)
+        return Background(img, cover >= 1.0 - 1e-4)
 
 
-class PlateBuilder:
+class BackgroundBuilder:
     """Collect spaced, downscaled samples with their person masks; `build()` the masked median.
 
     Call `wants_next()` before each frame (it is cheap) and `add(image, person_mask)` with every
@@ -59,7 +61,7 @@ class PlateBuilder:
 
     def __init__(self, max_samples: int = 32, max_side: int = 320, min_clean: int = 1):
         if max_samples < 2 or max_side < 8 or min_clean < 1:
-            raise RedactError("plate: need max_samples >= 2, max_side >= 8, min_clean >= 1")
+            raise RedactError("background: need max_samples >= 2, max_side >= 8, min_clean >= 1")
         self.max_samples = int(max_samples)
         self.max_side = int(max_side)
         self.min_clean = int(min_clean)
@@ -83,7 +85,7 @@ class PlateBuilder:
         img = np.asarray(image)
         mask = np.asarray(person_mask, bool)
         if img.ndim != 3 or img.shape[2] != 3 or img.dtype != np.uint8 or mask.shape != img.shape[:2]:
-            raise RedactError(f"plate: expected image [H,W,3] uint8 and mask [H,W], got {list(img.shape)} "
+            raise RedactError(f"background: expected image [H,W,3] uint8 and mask [H,W], got {list(img.shape)} "
                               f"{img.dtype} and {list(mask.shape)}")
         if self._full_shape is None:
             h, w = img.shape[:2]
@@ -91,7 +93,7 @@ class PlateBuilder:
             self._full_shape = (h, w)
             self._small_shape = (max(1, round(h * s)), max(1, round(w * s)))
         elif img.shape[:2] != self._full_shape:
-            raise RedactError("plate: every frame must have the same size")
+            raise RedactError("background: every frame must have the same size")
         sh, sw = self._small_shape  # type: ignore[misc]
         small = cv2.resize(img, (sw, sh), interpolation=cv2.INTER_AREA) if (sh, sw) != img.shape[:2] else img.copy()
         # A small pixel is "person" if any full-size pixel under it is, plus one pixel of safety
@@ -110,10 +112,10 @@ class PlateBuilder:
     def samples(self) -> int:
         return len(self._frames)
 
-    def build(self) -> Plate:
+    def build(self) -> Background:
         """The masked per-pixel median of the kept samples, at the downscaled size."""
         if not self._frames:
-            raise RedactError("plate: no frames were given, so there is no background plate")
+            raise RedactError("background: no frames were given, so there is no empty-scene background")
         stack = np.stack(self._frames).astype(np.float32)  # [K, h, w, 3]
         masks = np.stack(self._masks)  # [K, h, w]
         stack[masks] = np.nan
@@ -122,4 +124,4 @@ class PlateBuilder:
         med = np.zeros(stack.shape[1:], np.float32)
         if valid.any():
             med[valid] = np.nanmedian(stack[:, valid, :], axis=0)
-        return Plate(np.clip(np.round(med), 0, 255).astype(np.uint8), valid)
+        return Background(np.clip(np.round(med), 0, 255).astype(np.uint8), valid)
