@@ -382,20 +382,67 @@ def _with_envelope(base, kind, tmp_path, data: bytes) -> Path:
     return out
 
 
+def _suits_every_edit(envelope: bytes) -> bool:
+    env = json.loads(envelope)
+    sig = env["signatures"][0]["sig"]
+    return len(signing.b64decode_any(env["payload"])) % 3 != 0 and sig.count("+") + sig.count("/") >= 2
+
+
+@pytest.fixture(scope="module")
+def edit_base(base, tmp_path_factory):
+    """The clean packages re-signed by their own key with a nonce in the predicate, chosen so that
+    every edit above changes something: the payload's base64 ends in padding (its length is not a
+    multiple of 3) and the signature's holds two or more of '+' and '/', the characters only the
+    standard alphabet has. Without this the edits would depend on the bytes of one signature."""
+    from redact.provenance.package import _write_tar
+
+    root = tmp_path_factory.mktemp("edit-base")
+    out = {"signer": base["signer"], "key": base["key"]}
+    for kind in ("dir", "tar"):
+        src = root / f"{kind}-files"
+        if kind == "dir":
+            shutil.copytree(base["dir"]["path"], src)
+        else:
+            src.mkdir()
+            for m, data in _members(base):
+                (src / m.name).write_bytes(data)
+        for nonce in range(300):
+            resign_statement(src, base["signer"], lambda st_, n=nonce: st_["predicate"]["parameters"].update(nonce=n),
+                             rehash=False)
+            if _suits_every_edit((src / "envelope.json").read_bytes()):
+                break
+        else:
+            pytest.fail("no nonce gave an envelope that suits every edit")
+        path = src
+        if kind == "tar":
+            path = root / "pkg.tar"
+            with open(path, "wb") as f:
+                _write_tar(f, [(n.name, n.stat().st_size, (lambda n=n: open(n, "rb"))) for n in sorted(src.iterdir())])
+        out[kind] = {"path": path, "payload": payload_of(src)}
+    return out
+
+
+@pytest.mark.parametrize("kind", ["dir", "tar"])
+def test_edit_base_is_clean(edit_base, kind):
+    # Guard for the test below: the re-signed packages verify, with no notes.
+    v = verify_package(edit_base[kind]["path"], [edit_base["key"]])
+    assert v.payload == edit_base[kind]["payload"] and v.notes == ()
+
+
 @pytest.mark.parametrize("kind", ["dir", "tar"])
 @pytest.mark.parametrize("name", sorted(ENVELOPE_EDITS))
-def test_envelope_encodings(base, tmp_path, name, kind):
-    original = _original_envelope(base, kind)
+def test_envelope_encodings(edit_base, tmp_path, name, kind):
+    original = _original_envelope(edit_base, kind)
     edit, rule = ENVELOPE_EDITS[name]
     data = edit(original)
     assert data != original  # the fixture really changes the file
-    pkg = _with_envelope(base, kind, tmp_path, data)
+    pkg = _with_envelope(edit_base, kind, tmp_path, data)
     if rule is None:
-        v = verify_package(pkg, [base["key"]])
-        assert v.payload == base[kind]["payload"] and v.signers[0].key_id == base["signer"].key_id
+        v = verify_package(pkg, [edit_base["key"]])
+        assert v.payload == edit_base[kind]["payload"] and v.signers[0].key_id == edit_base["signer"].key_id
         assert has(v.notes, "envelope.json", ALLOWED_NOTES[name]), v.notes
     else:
-        assert has(findings(pkg, base["key"]), rule)
+        assert has(findings(pkg, edit_base["key"]), rule)
 
 
 def test_clean_package_has_no_notes(base):
