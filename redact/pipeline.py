@@ -26,6 +26,16 @@ from redact.errors import InputError, OutputError, RedactError
 from redact.media.stages import WriteBehind, map_ahead, read_ahead
 from redact.provenance import package
 from redact.provenance.log import TransformLog, utc_now
+from redact.provenance.predicate import (
+    AuditRecord,
+    Disclosure,
+    FaultCounts,
+    ModelRecord,
+    Predicate,
+    ReviewCounts,
+    SourceRecord,
+    ToolRecord,
+)
 from redact.redaction.quality import QualityMonitor, ReviewRange, ReviewRules, encode_quality_line, review_document
 from redact.redaction.render import RenderSettings, obscure_all, obscurer_for, render_frame
 from redact.skeletons import rows
@@ -474,23 +484,22 @@ def _run(source, info, out_dir, staging, video_final, pkg_final, signer, setting
     if disclosure:
         log.disclosure(**disclosure)
 
-    predicate = {
-        "source": {"name": source.name, "sha256": reader.sha256, "bytes": reader.bytes,
-                   "duration": round(info.duration, 6), "fps": f"{info.fps.numerator}/{info.fps.denominator}",
-                   "frames": n_frames, "width": info.width, "height": info.height,
-                   "stopped_early": reader.stopped_early},
-        "model": {"id": entry.id, "sha256": entry.sha256, "licence": entry.licence},
-        "parameters": settings.record(),
-        "privacy": privacy.to_record() if privacy is not None else {"options": "none"},
-        "disclosure": dict(disclosure or {}),
-        "review": {"ranges": len(review), "flagged_frames": monitor.flagged},
-        "faults": {"frames": len(stats.faults)},
-        "plan": None if plan is None else plan.record(),
-        "audit": None if audit_result is None else {k: audit_result[k] for k in
-                                                    ("passed", "faces", "persons", "source_faces", "survived")},
-        "tool": {"name": "redact", "version": __version__},
-        "created": utc_now(),
-    }
+    predicate = Predicate(
+        source=SourceRecord(name=source.name, sha256=reader.sha256, bytes=reader.bytes,
+                            duration=round(info.duration, 6), fps=f"{info.fps.numerator}/{info.fps.denominator}",
+                            frames=n_frames, width=info.width, height=info.height,
+                            stopped_early=reader.stopped_early),
+        model=ModelRecord(entry.id, entry.sha256, entry.licence),
+        parameters=settings.record(),
+        privacy=privacy.to_record() if privacy is not None else {"options": "none"},
+        disclosure=Disclosure.of(disclosure),
+        review=ReviewCounts(len(review), monitor.flagged),
+        faults=FaultCounts(len(stats.faults)),
+        plan=None if plan is None else plan.record(),
+        audit=None if audit_result is None else AuditRecord.of(audit_result),
+        tool=ToolRecord("redact", __version__),
+        created=utc_now(),
+    )
     signed = staging / "signed"
     package.write_package(pkg_dir, signed, predicate, signer, video=video_tmp, archive=settings.archive)
     os.rename(video_tmp, video_final)

@@ -114,7 +114,7 @@ def test_single_process_batch_writes_a_package_per_input_and_records_the_bad_one
         folder = result.out_dir / e.output
         verified = verify_package(folder / "package", [public], source=tree["src"] / rel,
                                   video=folder / "redacted.mp4")
-        assert verified.predicate["source"]["sha256"] == digest
+        assert verified.predicate.source.sha256 == digest
         with open(folder / "package" / "skeletons.jsonl", "rb") as f:
             assert any(len(r.tracks) for r in read_rows(f)), "no person found: comparisons would be vacuous"
     bad = entries[BAD]
@@ -278,3 +278,15 @@ def test_cli_exit_codes_and_json(tree, single, tmp_path):
 def test_cli_help_has_an_example():
     r = CliRunner().invoke(main, ["batch", "--help"])
     assert r.exit_code == 0 and "redact batch archive/" in r.stdout and "--scheduler" in r.stdout
+
+
+def test_batch_statements_follow_the_published_predicate_schema(single):
+    """Every package a batch writes signs a statement valid under docs/predicate.schema.json (jsonschema)."""
+    from statement_schema import check_statement, envelope_payload
+
+    result, _ = single
+    done = [e for e in result.entries if e.status == STATUS_DONE]
+    assert len(done) == len(GOOD)
+    for e in done:
+        st = check_statement(envelope_payload(result.out_dir / e.output / "package"))
+        assert st["predicate"]["source"]["sha256"] == e.sha256

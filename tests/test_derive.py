@@ -223,7 +223,7 @@ def test_tar_parent_and_tar_output(derived, derived_tar):
     pub = derived["signer"].public_key
     v = verify_package(derived_tar["package"], [pub])
     assert hashlib.sha256(derived_tar["payload"]).hexdigest() == hashlib.sha256(v.payload).hexdigest()
-    pred = v.predicate
+    pred = v.predicate.to_json()
     # keypoints the parent dropped stay dropped in its children
     assert pred["privacy"]["drop_keypoints"] == COCO_HEAD and pred["privacy"]["target_fps"] == 5.0
     assert pred["parent"]["statement_sha256"] == hashlib.sha256(_payload(derived["package"])).hexdigest()
@@ -426,3 +426,12 @@ def test_privacy_options_decorator_gives_none_when_all_off():
     assert seen[-1] == PrivacyOptions(noise_px=2.0, coordinates="track", keep_position=True)
     r = runner.invoke(cmd, ["--body-height", "170"])
     assert r.exit_code == 2 and "--body-height" in r.stderr and len(seen) == 2
+
+
+def test_derived_statements_follow_the_published_predicate_schema(parent, derived, derived_tar):
+    """Derived statements (folder and .tar) validate against docs/predicate.schema.json (jsonschema)."""
+    from statement_schema import check_statement
+
+    st = check_statement(_payload(derived["package"]))
+    assert st["predicate"]["parent"]["statement_sha256"] == hashlib.sha256(_payload(parent["package"])).hexdigest()
+    check_statement(derived_tar["payload"])

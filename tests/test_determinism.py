@@ -57,15 +57,15 @@ def test_statement_subjects_are_identical_and_match_the_files(two_runs):
     (a, va), (b, vb) = two_runs
     digests = []
     for result, verified in two_runs:
-        by_name = {s["name"]: s["digest"]["sha256"] for s in verified.subjects}
+        by_name = {s.name: s.sha256 for s in verified.subjects}
         for name in SAME_BYTES:
             assert by_name[name] == hashlib.sha256((result.package / name).read_bytes()).hexdigest()  # FIPS 180-4
         digests.append({n: by_name[n] for n in SAME_BYTES})
     assert digests[0] == digests[1]
-    pa = {k: v for k, v in va.predicate.items() if k not in VOLATILE_PREDICATE}
-    pb = {k: v for k, v in vb.predicate.items() if k not in VOLATILE_PREDICATE}
+    pa = {k: v for k, v in va.predicate.to_json().items() if k not in VOLATILE_PREDICATE}
+    pb = {k: v for k, v in vb.predicate.to_json().items() if k not in VOLATILE_PREDICATE}
     assert pa == pb
-    assert va.predicate["log"]["entries"] == vb.predicate["log"]["entries"]
+    assert va.predicate.log.entries == vb.predicate.log.entries
     assert va.key_id == vb.key_id == Signer.from_seed(SEED).key_id
 
 

@@ -10,6 +10,7 @@ import json
 import os
 import re
 import tarfile
+from dataclasses import replace
 from pathlib import Path
 
 import numpy as np
@@ -19,6 +20,17 @@ from redact import jsonio
 from redact.errors import OutputError, PackageError
 from redact.provenance import merkle, package, signing
 from redact.provenance.log import TransformLog
+from redact.provenance.predicate import (
+    Disclosure,
+    FaultCounts,
+    LogRecord,
+    ModelRecord,
+    Predicate,
+    ReviewCounts,
+    SourceRecord,
+    ToolRecord,
+)
+from redact.provenance.summary import summarise_package
 from redact.skeletons.rows import encode_row
 from redact.vision.records import Tracks
 
@@ -56,18 +68,26 @@ def build_package(root: Path, signer: signing.Signer, *, archive: bool = False, 
     log = TransformLog(staging / package.LOG, clock=lambda: "2025-01-01T00:00:00.000000Z")
     log.append("decode", frames=N_FRAMES)
     log.append("redaction", style="blur", frames=[0, N_FRAMES - 1])
-    predicate = {
-        "source": {"name": "source.bin", "sha256": hashlib.sha256(source.read_bytes()).hexdigest(),
-                   "bytes": source.stat().st_size, "duration": 0.24, "fps": 25.0, "frames": N_FRAMES,
-                   "width": 64, "height": 48, "frames_root": merkle.root(digests).hex()},
-        "model": {"id": "test-model", "sha256": "00" * 32, "licence": "test"},
-        "parameters": {"style": "blur"}, "privacy": {}, "tool": {"name": "redact", "version": "0.1.0"},
-        "created": "2025-01-01T00:00:00Z",
-    }
+    predicate = test_predicate(
+        SourceRecord(name="source.bin", sha256=hashlib.sha256(source.read_bytes()).hexdigest(),
+                     bytes=source.stat().st_size, duration=0.24, fps="25/1", frames=N_FRAMES,
+                     width=64, height=48, frames_root=merkle.root(digests).hex()))
     final = root / (f"{name}.tar" if archive else name)
     payload = package.write_package(staging, final, predicate, signer, video=red if video else None, archive=archive)
     return {"path": final, "source": source, "video": red, "payload": payload, "predicate": predicate,
             "digests": digests}
+
+
+def test_predicate(source: SourceRecord | None = None, **changes) -> Predicate:
+    """A small typed predicate for hand-made packages (no video pipeline)."""
+    source = source or SourceRecord("source.bin", "ab" * 32, 100, 0.24, "25/1", N_FRAMES, 64, 48)
+    p = Predicate(source=source, model=ModelRecord("test-model", "00" * 32, "test"), parameters={"style": "blur"},
+                  privacy={}, disclosure=Disclosure(), review=ReviewCounts(1, 2), faults=FaultCounts(1),
+                  tool=ToolRecord("redact", "0.1.0"), created="2025-01-01T00:00:00Z")
+    return replace(p, **changes)
+
+
+test_predicate.__test__ = False  # a helper, not a test
 
 
 @pytest.fixture
@@ -101,7 +121,7 @@ def test_directory_layout_and_statement(tmp_path, signer):
     last = json.loads(lines[-1])
     assert last["kind"] == "sign" and last["key_id"] == signer.key_id
     assert st["predicate"]["source"]["frames_root"] == merkle.root(p["digests"]).hex()
-    assert "log" not in p["predicate"]  # the caller's predicate is not changed
+    assert p["predicate"].log is None  # the caller's predicate is not changed
 
 
 def base64_payload(env):
@@ -123,18 +143,21 @@ def test_writer_refuses(tmp_path, signer):
     staging = tmp_path / "s"; staging.mkdir()
     (staging / "a.json").write_bytes(b"{}")
     with pytest.raises(OutputError, match="already exists"):
-        package.write_package(staging, p["path"], {}, signer)
+        package.write_package(staging, p["path"], test_predicate(), signer)
     with pytest.raises(OutputError, match="must not contain 'log'"):
-        package.write_package(staging, tmp_path / "p2", {"log": {}}, signer)
+        package.write_package(staging, tmp_path / "p2", test_predicate(log=LogRecord("00" * 32, 1)), signer)
     with pytest.raises(OutputError, match="strict JSON"):
-        package.write_package(staging, tmp_path / "p2", {"x": float("inf")}, signer)
+        package.write_package(staging, tmp_path / "p2", test_predicate(parameters={"x": float("inf")}), signer)
+    with pytest.raises(OutputError, match="must be a redact.provenance.predicate.Predicate"):
+        package.write_package(staging, tmp_path / "p2", {"source": {}}, signer)  # a dict is not a predicate
     os.symlink(tmp_path / "source.bin", staging / "link")
     with pytest.raises(OutputError, match="symlink"):
-        package.write_package(staging, tmp_path / "p2", {}, signer)
+        package.write_package(staging, tmp_path / "p2", test_predicate(), signer)
     os.unlink(staging / "link")
     (staging / package.FRAMES).write_bytes(merkle.format_frame_digests([b"\x01" * 32]))
+    bad_root = replace(test_predicate().source, frames_root="00" * 32)
     with pytest.raises(OutputError, match="frames_root"):
-        package.write_package(staging, tmp_path / "p2", {"source": {"frames_root": "00" * 32}}, signer)
+        package.write_package(staging, tmp_path / "p2", test_predicate(source=bad_root), signer)
     assert not (tmp_path / "p2").exists()
     assert not (staging / "log.jsonl").exists()  # a refused write leaves the staging directory as it was
 
@@ -238,11 +261,11 @@ def test_strict_json_size_limit_before_parsing():
 
 def test_summary_counts(tmp_path, signer):
     p = build_package(tmp_path, signer)
-    s = package.summarise_package(p["path"], [signer.public_key])
+    s = summarise_package(p["path"], [signer.public_key])
     assert s["verified"] and s["key_id"] == signer.key_id
     # synthetic_rows: 6 frames, 2 people in frames 0-3 and 1 in frames 4-5, ids 1 and 2, frame 5 a fault
     assert s["counts"] == {"frames": 6, "people": 10, "tracks": 2, "fault_frames": 1}
     assert s["flagged"] == [{"start": 4, "end": 5, "reason": "track lost"}]
     assert s["source"]["frames"] == N_FRAMES and s["model"]["id"] == "test-model"
-    u = package.summarise_package(p["path"])
+    u = summarise_package(p["path"])
     assert not u["verified"] and u["counts"] == s["counts"]

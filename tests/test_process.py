@@ -292,3 +292,13 @@ def test_audio_is_dropped_unless_asked_and_metadata_is_not_copied(clip_with_audi
     log = [json.loads(line) for line in (result.package / "log.jsonl").read_text().splitlines()]
     enc = [e for e in log if e["kind"] == "encode"][0]
     assert enc["audio"] == ("included" if keep else "dropped") and enc["container_metadata"] == "not copied"
+
+
+def test_statement_follows_the_published_predicate_schema(processed):
+    """The statement a run signs validates against docs/predicate.schema.json (jsonschema, draft 2020-12)."""
+    from statement_schema import check_statement, envelope_payload
+
+    _, result = processed
+    st = check_statement(envelope_payload(result.package))
+    assert st["predicate"]["parent"] is None and st["predicate"]["faults"]["frames"] == len(FAULT_FRAMES)
+    assert st["predicate"]["source"]["frames"] == result.frames

@@ -80,7 +80,7 @@ def test_clean_package_verifies(base, kind):
     v = verify_package(p["path"], [base["key"]], source=p["source"], video=p["video"])
     assert v.key_id == base["signer"].key_id
     assert v.payload == p["payload"]
-    assert v.predicate["source"]["sha256"] == hashlib.sha256(p["source"].read_bytes()).hexdigest()
+    assert v.predicate.source.sha256 == hashlib.sha256(p["source"].read_bytes()).hexdigest()
     assert "source file" in v.checked and "redacted video" in v.checked
 
 

@@ -19,19 +19,17 @@ from redact.cli.keyfiles import load_trusted_keys, trusted_keys_option
 
 
 def _verified_frames(package: Path, trusted_keys: tuple[Path, ...]):
-    """Verify the package, then return (verified package, per-frame digests)."""
-    from redact import jsonio
+    """Verify the package, then return (verified package, per-frame digests read through it)."""
     from redact.errors import InputError
     from redact.provenance import merkle
-    from redact.provenance.package import FRAMES, open_package
+    from redact.provenance.package import FRAMES
     from redact.provenance.verify import verify_package
 
     result = verify_package(package, load_trusted_keys(trusted_keys))
-    with open_package(package) as reader:
-        if FRAMES not in reader.files:
-            raise InputError(f"the package has no {FRAMES}: it was written without per-frame digests")
-        with reader.open(FRAMES) as f:
-            digests = merkle.parse_frame_digests(line for _, line in jsonio.iter_lines(f, FRAMES, 1024))
+    if not result.has(FRAMES):
+        raise InputError(f"the package has no {FRAMES}: it was written without per-frame digests")
+    with result.open(FRAMES) as f:
+        digests = merkle.read_frame_digests(f)
     return result, digests
 
 
@@ -54,8 +52,7 @@ def frame_proof(package: Path, trusted_keys: tuple[Path, ...], frame: int, out: 
     from redact.provenance import merkle
 
     result, digests = _verified_frames(package, trusted_keys)
-    src = result.predicate.get("source", {})
-    proof = merkle.make_frame_proof(digests, frame, src.get("sha256") if isinstance(src, dict) else None)
+    proof = merkle.make_frame_proof(digests, frame, result.predicate.source.sha256)
     if os.path.lexists(out):
         raise OutputError(f"{out} already exists; refusing to overwrite it")
     tmp = out.with_name(f".{out.name}.tmp-{os.getpid()}")
@@ -107,8 +104,7 @@ def frame_check(proof_file: Path, package: Path | None, trusted_keys: tuple[Path
     size = None
     if package is not None:
         result, digests = _verified_frames(package, trusted_keys)
-        src = result.predicate.get("source", {})
-        root_hex = src.get("frames_root") if isinstance(src, dict) else None
+        root_hex = result.predicate.source.frames_root
         if root_hex is None:
             raise InputError("the package's signed statement has no source.frames_root")
         size = len(digests)

@@ -25,7 +25,7 @@ on it. Skeleton data is pseudonymised, not anonymous: handle the package as pers
 @library_errors
 def inspect(package: Path, trusted_keys: tuple[Path, ...], as_json: bool) -> None:
     """Summarise PACKAGE: source, model, key id, counts of frames/people/tracks, flagged ranges."""
-    from redact.provenance.package import summarise_package
+    from redact.provenance.summary import summarise_package
 
     trusted = load_trusted_keys(trusted_keys)
     summary = summarise_package(package, trusted or None)

@@ -103,12 +103,12 @@ def verify(package: Path, trusted_keys: tuple[Path, ...], required: tuple[Path, 
         sys.exit(1)
     if quiet:
         return
-    src = result.predicate.get("source") if isinstance(result.predicate.get("source"), dict) else {}
+    src = result.predicate.source
     signers = _signer_lines(result)
     if as_json:
         echo_json({"valid": True, "package": str(package), "key_id": result.key_id, "signers": signers,
                    "checked": list(result.checked), "notes": list(result.notes),
-                   "source": {k: src.get(k) for k in ("name", "sha256", "bytes")}, "findings": []})
+                   "source": {"name": src.name, "sha256": src.sha256, "bytes": src.bytes}, "findings": []})
         return
     click.echo(f"VALID {package}")
     click.echo(f"  signed by {len(signers)} key(s):")
@@ -116,7 +116,7 @@ def verify(package: Path, trusted_keys: tuple[Path, ...], required: tuple[Path, 
         role = "author (named by the log)" if s["role"] == "author" else "countersignature"
         click.echo(f"    {s['key_id']}" + (f" ({s['key_file']})" if s["key_file"] else "") + f": {role}")
     click.echo(f"  checked: {', '.join(result.checked)}")
-    click.echo(f"  source: {src.get('name')} sha256 {src.get('sha256')}")
+    click.echo(f"  source: {src.name} sha256 {src.sha256}")
     for n in result.notes:
         click.echo(f"note: {n}", err=True)
     if source is None:

@@ -16,12 +16,14 @@ import hashlib
 import re
 from collections.abc import Iterable, Sequence
 from dataclasses import dataclass
+from typing import BinaryIO
 
 from redact import jsonio
 from redact.errors import InputError, PackageError
 
 DIGEST_BYTES = 32
-PROOF_TYPE = "https://redact.invalid/frame-inclusion/v1"  # ours; .invalid is reserved (RFC 6761)
+PROOF_TYPE = "urn:redact:frame-inclusion-proof:v1"  # ours, named like redact.provenance.predicate.PREDICATE_TYPE
+FRAMES_LINE_LIMIT = 1024  # bytes read per frames.sha256 line before refusing it (a line is 65); common practice
 _HEX64 = re.compile(rb"[0-9a-f]{64}\n")
 
 
@@ -102,14 +104,21 @@ def parse_frame_digests(lines: Iterable[bytes], what: str = "frames.sha256") -> 
     return out
 
 
+def read_frame_digests(stream: BinaryIO, what: str = "frames.sha256") -> list[bytes]:
+    """All per-frame digests of a `frames.sha256` stream (lines checked as parse_frame_digests does)."""
+    return parse_frame_digests((line for _, line in jsonio.iter_lines(stream, what, FRAMES_LINE_LIMIT)), what)
+
+
+def frame_digest_line(digest: bytes) -> bytes:
+    """One line of `frames.sha256` for a 32-byte per-frame digest (what the pipeline writes per frame)."""
+    if len(digest) != DIGEST_BYTES:
+        raise ValueError("a per-frame digest must be 32 bytes")
+    return digest.hex().encode("ascii") + b"\n"
+
+
 def format_frame_digests(digests: Iterable[bytes]) -> bytes:
     """The `frames.sha256` file for a sequence of 32-byte per-frame digests."""
-    parts = []
-    for d in digests:
-        if len(d) != DIGEST_BYTES:
-            raise ValueError("a per-frame digest must be 32 bytes")
-        parts.append(d.hex() + "\n")
-    return "".join(parts).encode("ascii")
+    return b"".join(frame_digest_line(d) for d in digests)
 
 
 @dataclass(frozen=True)

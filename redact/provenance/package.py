@@ -1,14 +1,9 @@
 """The skeleton-only package: layout, writing (sign, then atomic rename) and safe reading.
 
 A package is a directory or one uncompressed .tar holding exactly the files named as
-`package-file` subjects of its signed in-toto Statement, plus `envelope.json`. The redacted video
-is a subject too (role `redacted-video`) but lives outside the package; it is checked only when
-the verifier is given it. Subject encoding (in-toto ResourceDescriptor):
-
-    {"name": "skeletons.jsonl", "digest": {"sha256": "<hex>"},
-     "annotations": {"role": "package-file", "bytes": 1234}}
-    {"name": "redacted.mp4", "digest": {"sha256": "<hex>"},
-     "annotations": {"role": "redacted-video", "bytes": 56789}}
+`package-file` subjects of its signed in-toto Statement (redact.provenance.statement), plus
+`envelope.json`. The redacted video is a subject too (role `redacted-video`) but lives outside
+the package; it is checked only when the verifier is given it.
 
 Reading never extracts and never follows links: directory entries are opened with O_NOFOLLOW,
 tar members are read in place; names that are absolute, contain `..`, `.`, empty segments,
@@ -32,8 +27,10 @@ from redact.errors import OutputError, PackageError
 from redact.hashing import sha256_file, sha256_stream
 from redact.provenance import merkle, signing
 from redact.provenance.log import TransformLog
+from redact.provenance.predicate import PREDICATE_TYPE, LogRecord, Predicate
+from redact.provenance.statement import ROLE_FILE, ROLE_VIDEO, Statement, Subject, parse_statement
 
-PREDICATE_TYPE = "https://redact.invalid/skeleton-package/v1"  # ours; .invalid is reserved (RFC 6761)
+__all__ = ["PREDICATE_TYPE", "ROLE_FILE", "ROLE_VIDEO", "write_package", "open_package", "check_name"]
 ENVELOPE = "envelope.json"
 SKELETONS = "skeletons.jsonl"
 TRACKS = "tracks.json"
@@ -41,8 +38,6 @@ QUALITY = "quality.jsonl"
 REVIEW = "review.json"
 FRAMES = "frames.sha256"
 LOG = "log.jsonl"
-ROLE_FILE = "package-file"
-ROLE_VIDEO = "redacted-video"
 ENVELOPE_LIMIT = 16 * 1024 * 1024  # bytes; common practice
 MAX_ENTRIES = 10_000  # files in a package; common practice
 MAX_DEPTH = 8  # directory levels; common practice
@@ -269,40 +264,34 @@ def open_package(path: Path) -> Iterator[PackageReader]:
         reader.close()
 
 
-def _subject(name: str, digest: str, size: int, role: str) -> dict:
-    return {"name": name, "digest": {"sha256": digest}, "annotations": {"role": role, "bytes": size}}
-
-
-def _check_predicate(predicate: dict) -> dict:
-    if not isinstance(predicate, dict):
-        raise OutputError("the predicate must be a JSON object")
-    if "log" in predicate:
+def _check_predicate(predicate: Predicate) -> Predicate:
+    """The predicate as the strict parser reads it back: anything it would refuse is refused here."""
+    if not isinstance(predicate, Predicate):
+        raise OutputError("the predicate must be a redact.provenance.predicate.Predicate")
+    if predicate.log is not None:
         raise OutputError("the predicate must not contain 'log'; write_package adds the log head")
     try:
-        return jsonio.loads_object(jsonio.dumps(predicate), "predicate")  # a deep, JSON-clean copy
+        return Predicate.parse(jsonio.loads_object(jsonio.dumps(predicate.to_json()), "predicate"))
     except (TypeError, ValueError, PackageError) as e:
-        raise OutputError(f"the predicate is not strict JSON: {e}") from None
+        raise OutputError(f"the predicate is not strict JSON of its schema: {e}") from None
 
 
-def _frames_root(staging: Path, files: dict[str, int], predicate: dict) -> None:
+def _frames_root(staging: Path, files: dict[str, int], predicate: Predicate) -> Predicate:
     """Fill in or cross-check source.frames_root from frames.sha256 (RFC 6962 root)."""
     if FRAMES not in files:
-        return
+        return predicate
     with open(staging / FRAMES, "rb") as f:
         try:
-            digests = merkle.parse_frame_digests(line for _, line in jsonio.iter_lines(f, FRAMES, 1024))
+            digests = merkle.read_frame_digests(f)
         except PackageError as e:
             raise OutputError(f"staging {e}") from None
     root = merkle.root(digests).hex()
-    source = predicate.setdefault("source", {})
-    if not isinstance(source, dict):
-        raise OutputError("predicate source must be an object")
-    if source.get("frames_root") not in (None, root):
+    if predicate.source.frames_root not in (None, root):
         raise OutputError("predicate source.frames_root does not match frames.sha256")
-    source["frames_root"] = root
+    return predicate.with_frames_root(root)
 
 
-def write_package(staging_dir: Path, final_path: Path, predicate: dict, signer: signing.Signer,
+def write_package(staging_dir: Path, final_path: Path, predicate: Predicate, signer: signing.Signer,
                   video: Path | None = None, archive: bool = False) -> bytes:
     """Sign the files of `staging_dir` and move them into place as a package; returns the payload bytes.
 
@@ -332,7 +321,7 @@ def write_package(staging_dir: Path, final_path: Path, predicate: dict, signer: 
         if not video.is_file():
             raise OutputError(f"redacted video {video} does not exist")
 
-    _frames_root(staging, first.files, predicate)
+    predicate = _frames_root(staging, first.files, predicate)
     log = TransformLog(staging / LOG)
     log.append("sign", key_id=signer.key_id, predicate_type=PREDICATE_TYPE,
                files=sorted(set(first.files) | {LOG}), video=video_name, archive=bool(archive))
@@ -340,13 +329,11 @@ def write_package(staging_dir: Path, final_path: Path, predicate: dict, signer: 
     subjects = []
     for name in sorted(reader.files):
         digest, size = sha256_file(staging / name)
-        subjects.append(_subject(name, digest, size, ROLE_FILE))
-    if video is not None:
+        subjects.append(Subject(name, digest, size, ROLE_FILE))
+    if video is not None and video_name is not None:
         digest, size = sha256_file(video)
-        subjects.append(_subject(video_name, digest, size, ROLE_VIDEO))
-    predicate["log"] = {"head": log.head, "entries": log.entries}
-    statement = signing.build_statement(subjects, PREDICATE_TYPE, predicate)
-    payload = jsonio.dumps(statement)
+        subjects.append(Subject(video_name, digest, size, ROLE_VIDEO))
+    payload = Statement(tuple(subjects), predicate.signed(LogRecord(log.head, log.entries))).encode()
     envelope = signing.sign_envelope(payload, signing.PAYLOAD_TYPE, signer)
     _atomic_write(staging / ENVELOPE, signing.envelope_bytes(envelope))
 
@@ -388,8 +375,9 @@ def _rename_new(src: Path, dst: Path) -> None:
                           "(the staging directory must be on the same file system)") from None
 
 
-def read_statement_unverified(reader: PackageReader) -> tuple[dict, str | None]:
-    """The statement and keyid hint of a package WITHOUT checking the signature (for `inspect`)."""
+def read_statement_unverified(reader: PackageReader) -> tuple[Statement, str | None]:
+    """The statement and keyid hint of a package WITHOUT checking the signature (for `inspect`
+    without keys and the report of a package that failed verification); parsed strictly."""
     if ENVELOPE not in reader.files:
         raise PackageError(f"{ENVELOPE} is missing")
     env = jsonio.loads_object(reader.read(ENVELOPE, ENVELOPE_LIMIT), ENVELOPE, ENVELOPE_LIMIT)
@@ -399,79 +387,4 @@ def read_statement_unverified(reader: PackageReader) -> tuple[dict, str | None]:
         raise PackageError(f"{ENVELOPE}: payload is not base64 ({e})") from None
     sigs = env.get("signatures")
     hint = sigs[0].get("keyid") if isinstance(sigs, list) and sigs and isinstance(sigs[0], dict) else None
-    return jsonio.loads_object(payload, "statement", ENVELOPE_LIMIT), hint if isinstance(hint, str) else None
-
-
-REVIEW_LIMIT = 64 * 1024 * 1024  # bytes; common practice
-
-
-def _flagged_ranges(doc) -> list[dict]:
-    """Flagged ranges from review.json: a list, or an object with a "ranges" (or "flagged") list of
-    {"frame_start"|"start": frame, "frame_end"|"end": frame, "reasons": [str] | "reason": str}."""
-    items = doc.get("ranges", doc.get("flagged", [])) if isinstance(doc, dict) else doc
-    out = []
-    for r in items if isinstance(items, list) else []:
-        if not isinstance(r, dict):
-            continue
-        reason = r.get("reason")
-        if reason is None and isinstance(r.get("reasons"), list):
-            reason = ", ".join(str(x) for x in r["reasons"])
-        start = r.get("frame_start", r.get("start"))
-        end = r.get("frame_end", r.get("end"))
-        out.append({"start": start, "end": end, "reason": "" if reason is None else str(reason)})
-    return out
-
-
-def summarise_package(path: Path, trusted_keys: list | None = None) -> dict:
-    """A summary of a package for people: source, model, key id, counts, flagged ranges.
-
-    With trusted keys the package is verified first (VerificationFailed on any problem); without,
-    the summary is marked unverified. Every file is still parsed strictly.
-    """
-    if trusted_keys:
-        from redact.provenance.verify import verify_package
-
-        result = verify_package(path, trusted_keys)
-        statement, key_id, verified = result.statement, result.key_id, True
-    else:
-        with open_package(path) as reader:
-            statement, key_id = read_statement_unverified(reader)
-        verified = False
-    predicate = statement.get("predicate") if isinstance(statement.get("predicate"), dict) else {}
-
-    def obj(key: str) -> dict:
-        v = predicate.get(key)
-        return v if isinstance(v, dict) else {}
-
-    frames = people = faults = 0
-    ids: set = set()
-    flagged: list[dict] = []
-    files: list[str] = []
-    with open_package(path) as reader:
-        files = sorted(reader.files)
-        if SKELETONS in reader.files:
-            with reader.open(SKELETONS) as f:
-                for n, line in jsonio.iter_lines(f, SKELETONS):
-                    row = jsonio.loads_object(line, f"{SKELETONS} line {n}")
-                    frames += 1
-                    faults += row.get("status") == "fault"
-                    persons = row.get("people") if isinstance(row.get("people"), list) else []
-                    people += len(persons)
-                    ids.update(p.get("id") for p in persons if isinstance(p, dict) and isinstance(p.get("id"), int))
-        if REVIEW in reader.files:
-            flagged = _flagged_ranges(jsonio.loads(reader.read(REVIEW, REVIEW_LIMIT), REVIEW, REVIEW_LIMIT))
-    tool = obj("tool")
-    return {
-        "verified": verified,
-        "key_id": key_id,
-        "source": obj("source"),
-        "model": obj("model"),
-        "privacy": obj("privacy"),
-        "tool": f"{tool.get('name', '?')} {tool.get('version', '?')}",
-        "created": predicate.get("created"),
-        "log_entries": obj("log").get("entries"),
-        "counts": {"frames": frames, "people": people, "tracks": len(ids), "fault_frames": faults},
-        "flagged": flagged,
-        "files": files,
-        "caution": "Skeleton data is pseudonymised, not anonymous.",
-    }
+    return parse_statement(payload), hint if isinstance(hint, str) else None

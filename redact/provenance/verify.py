@@ -7,7 +7,8 @@
     alphabet, keyid hints, several signatures, each of which must verify). If it fails, stop
     here: an unauthenticated payload is never parsed. envelope.json's own bytes are not signed,
     so their JSON layout is fixed instead: exactly what this tool writes for those values.
- 4. Parse the payload strictly as an in-toto Statement v1 of our predicate type.
+ 4. Parse the payload strictly as an in-toto Statement v1 of our predicate type
+    (redact.provenance.statement, redact.provenance.predicate).
  5. Closed file set: package-file subjects = files in the package (minus envelope.json).
  6. Every file's size and SHA-256 against its subject.
  7. The transform log: chain intact, head and entry count equal to the signed predicate, and its
@@ -15,55 +16,26 @@
  8. frames.sha256: RFC 6962 root equals predicate source.frames_root (and the frame count).
  9. --source: SHA-256 and size equal predicate source.sha256 / source.bytes.
 10. --video: SHA-256 and size equal the redacted-video subject.
-Success returns the verified data; failure raises VerificationFailed with every finding.
+Success returns a VerifiedPackage (redact.provenance.contents) whose only way to read a file
+re-checks it against its signed subject; failure raises VerificationFailed with every finding.
 """
 
 from __future__ import annotations
 
-import re
 import tarfile
 from collections.abc import Sequence
-from dataclasses import dataclass, field
 from pathlib import Path
 
 from redact import jsonio
 from redact.errors import InputError, PackageError, VerificationFailed
 from redact.hashing import sha256_file, sha256_stream
 from redact.provenance import merkle, signing
+from redact.provenance.contents import VerifiedPackage
 from redact.provenance.log import check_chain
-from redact.provenance.package import (
-    ENVELOPE,
-    ENVELOPE_LIMIT,
-    FRAMES,
-    LOG,
-    PREDICATE_TYPE,
-    ROLE_FILE,
-    ROLE_VIDEO,
-    PackageReader,
-    TarReader,
-    check_name,
-    open_package,
-)
+from redact.provenance.package import ENVELOPE, ENVELOPE_LIMIT, FRAMES, LOG, PackageReader, TarReader, open_package
+from redact.provenance.statement import statement_findings
 
-_HEX64 = re.compile(r"[0-9a-f]{64}")
-
-
-@dataclass(frozen=True)
-class VerifiedPackage:
-    """What a successful verification vouches for; `payload` is the exact signed bytes."""
-
-    statement: dict
-    payload: bytes
-    key_id: str  # the author: the key the log's signing entry names
-    predicate: dict
-    subjects: tuple[dict, ...]
-    checked: tuple[str, ...] = field(default=())  # what was checked, in words, for reports
-    signers: tuple[signing.VerifiedSignature, ...] = field(default=())  # every key that signed, envelope order
-    notes: tuple[str, ...] = field(default=())  # accepted but unsigned envelope details
-
-    @property
-    def video_subject(self) -> dict | None:
-        return next((s for s in self.subjects if s["annotations"]["role"] == ROLE_VIDEO), None)
+__all__ = ["VerifiedPackage", "verify_package"]
 
 
 def verify_package(path: Path, trusted_keys: Sequence[signing.PublicKey], source: Path | None = None,
@@ -84,7 +56,7 @@ def verify_package(path: Path, trusted_keys: Sequence[signing.PublicKey], source
     findings: list[str] = []
     try:
         with open_package(Path(path)) as reader:
-            result = _verify(reader, keys, source, video, findings, list(required_signers))
+            result = _verify(Path(path), reader, keys, source, video, findings, list(required_signers))
     except PackageError as e:  # step 1 could not even open it, or a file could not be read safely
         findings.append(str(e))
         result = None
@@ -96,7 +68,7 @@ def verify_package(path: Path, trusted_keys: Sequence[signing.PublicKey], source
     return result
 
 
-def _verify(reader: PackageReader, keys: list, source: Path | None, video: Path | None,
+def _verify(path: Path, reader: PackageReader, keys: list, source: Path | None, video: Path | None,
             findings: list[str], required: list | None = None) -> VerifiedPackage | None:
     # 1. safe listing
     findings.extend(reader.problems)
@@ -129,16 +101,12 @@ def _verify(reader: PackageReader, keys: list, source: Path | None, video: Path 
                         "(compact JSON, sorted keys, one final newline): whitespace or key order were altered")
 
     # 4. statement
-    try:
-        statement = jsonio.loads_object(verified.payload, "statement", ENVELOPE_LIMIT)
-    except PackageError as e:
-        findings.append(str(e))
+    statement, problems = statement_findings(verified.payload)
+    if statement is None:
+        findings.extend(problems)
         return None
-    subjects, predicate = _check_statement(statement, findings)
-    if subjects is None:
-        return None
-    files = {s["name"]: s for s in subjects if s["annotations"]["role"] == ROLE_FILE}
-    video_subjects = [s for s in subjects if s["annotations"]["role"] == ROLE_VIDEO]
+    files = statement.files
+    predicate = statement.predicate
 
     # 5. closed file set
     present = set(reader.files) - {ENVELOPE}
@@ -150,32 +118,32 @@ def _verify(reader: PackageReader, keys: list, source: Path | None, video: Path 
     # 6. every hash
     for name in sorted(set(files) & present):
         want = files[name]
-        if reader.files[name] != want["annotations"]["bytes"]:
-            findings.append(f"{name}: size {reader.files[name]} bytes, signed size {want['annotations']['bytes']}")
+        if reader.files[name] != want.bytes:
+            findings.append(f"{name}: size {reader.files[name]} bytes, signed size {want.bytes}")
         try:
             with reader.open(name) as f:
                 digest, _ = sha256_stream(f)
         except (OSError, PackageError, tarfile.TarError) as e:
             findings.append(f"{name}: cannot be read ({e})")
             continue
-        if digest != want["digest"]["sha256"]:
+        if digest != want.sha256:
             findings.append(f"{name}: SHA-256 does not match the signed statement (file altered)")
 
     # 7. log chain and head
-    log_info = predicate.get("log")
+    log_info = predicate.log
     if LOG not in files:
         findings.append(f"{LOG}: the signed statement names no transform log")
     elif LOG in present:
         with reader.open(LOG) as f:
             report = check_chain(f, LOG)
         findings.extend(report.findings)
-        if not isinstance(log_info, dict):
+        if log_info is None:
             findings.append("predicate: log head is missing")
         else:
-            if report.head != log_info.get("head"):
+            if report.head != log_info.head:
                 findings.append(f"{LOG}: head {report.head[:16]}… does not match the signed log head")
-            if report.entries != log_info.get("entries"):
-                findings.append(f"{LOG}: {report.entries} entries, the signed statement says {log_info.get('entries')!r}")
+            if report.entries != log_info.entries:
+                findings.append(f"{LOG}: {report.entries} entries, the signed statement says {log_info.entries!r}")
         last = report.last or {}
         if last.get("kind") != "sign":
             findings.append(f"{LOG}: the last entry is not the signing entry")
@@ -186,19 +154,19 @@ def _verify(reader: PackageReader, keys: list, source: Path | None, video: Path 
             author = last["key_id"]
 
     # 8. per-frame digests and their RFC 6962 root
-    src = predicate.get("source") if isinstance(predicate.get("source"), dict) else {}
-    want_root = src.get("frames_root")
+    src = predicate.source
+    want_root = src.frames_root
     if FRAMES in files and FRAMES in present:
         try:
             with reader.open(FRAMES) as f:
-                digests = merkle.parse_frame_digests(line for _, line in jsonio.iter_lines(f, FRAMES, 1024))
+                digests = merkle.read_frame_digests(f)
             got = merkle.root(digests).hex()
             if want_root is None:
                 findings.append(f"{FRAMES}: present but the predicate has no source.frames_root")
             elif got != want_root:
                 findings.append(f"{FRAMES}: RFC 6962 root does not match the signed source.frames_root")
-            if isinstance(src.get("frames"), int) and src["frames"] != len(digests):
-                findings.append(f"{FRAMES}: {len(digests)} frame digests, the predicate says {src['frames']} frames")
+            if src.frames != len(digests):
+                findings.append(f"{FRAMES}: {len(digests)} frame digests, the predicate says {src.frames} frames")
         except PackageError as e:
             findings.append(str(e))
     elif want_root is not None and FRAMES not in files:
@@ -208,71 +176,23 @@ def _verify(reader: PackageReader, keys: list, source: Path | None, video: Path 
     # 9. the source file
     if source is not None:
         digest, size = sha256_file(source)
-        if src.get("sha256") != digest:
+        if src.sha256 != digest:
             findings.append(f"source: {Path(source).name} has SHA-256 {digest[:16]}…, not the signed source.sha256")
-        if "bytes" in src and src.get("bytes") != size:
-            findings.append(f"source: {Path(source).name} is {size} bytes, the signed source.bytes is {src.get('bytes')}")
+        if src.bytes != size:
+            findings.append(f"source: {Path(source).name} is {size} bytes, the signed source.bytes is {src.bytes}")
         checked.append("source file")
 
     # 10. the redacted video
     if video is not None:
-        if not video_subjects:
+        want_video = statement.video
+        if want_video is None:
             findings.append("video: the signed statement names no redacted video")
         else:
-            want = video_subjects[0]
             digest, size = sha256_file(video)
-            if digest != want["digest"]["sha256"] or size != want["annotations"]["bytes"]:
+            if digest != want_video.sha256 or size != want_video.bytes:
                 findings.append(f"video: {Path(video).name} does not match the signed redacted video "
-                                f"{want['name']} (SHA-256 or size differs)")
+                                f"{want_video.name} (SHA-256 or size differs)")
         checked.append("redacted video")
 
-    return VerifiedPackage(statement, verified.payload, author, predicate, tuple(subjects), tuple(checked),
-                           verified.signers, tuple(notes))
-
-
-def _check_statement(statement: dict, findings: list[str]) -> tuple[list[dict] | None, dict]:
-    """Shape of an in-toto Statement v1 with our predicate; returns (subjects, predicate) or (None, {})."""
-    bad = len(findings)
-    if statement.get("_type") != signing.STATEMENT_TYPE:
-        findings.append(f"statement: _type is {statement.get('_type')!r}, expected {signing.STATEMENT_TYPE}")
-    if statement.get("predicateType") != PREDICATE_TYPE:
-        findings.append(f"statement: predicateType is {statement.get('predicateType')!r}, expected {PREDICATE_TYPE}")
-    predicate = statement.get("predicate")
-    if not isinstance(predicate, dict):
-        findings.append("statement: predicate is not an object")
-        predicate = {}
-    subjects = statement.get("subject")
-    if not isinstance(subjects, list) or not subjects:
-        findings.append("statement: subject must be a non-empty list")
-        return None, predicate
-    seen: set[str] = set()
-    videos = 0
-    for i, s in enumerate(subjects):
-        name = s.get("name") if isinstance(s, dict) else None
-        label = f"statement subject {i} ({name!r})"
-        if not isinstance(s, dict) or not isinstance(name, str):
-            findings.append(f"statement subject {i}: malformed (needs name, digest, annotations)")
-            continue
-        why = check_name(name)
-        if why:
-            findings.append(f"{label}: unsafe name ({why})")
-        if name in seen:
-            findings.append(f"{label}: named twice")
-        seen.add(name)
-        digest = s.get("digest")
-        if not isinstance(digest, dict) or not isinstance(digest.get("sha256"), str) or not _HEX64.fullmatch(digest["sha256"]):
-            findings.append(f"{label}: digest.sha256 must be 64 lowercase hex digits")
-        ann = s.get("annotations")
-        role = ann.get("role") if isinstance(ann, dict) else None
-        size = ann.get("bytes") if isinstance(ann, dict) else None
-        if role not in (ROLE_FILE, ROLE_VIDEO):
-            findings.append(f"{label}: annotations.role must be {ROLE_FILE!r} or {ROLE_VIDEO!r}")
-        if not isinstance(size, int) or isinstance(size, bool) or size < 0:
-            findings.append(f"{label}: annotations.bytes must be a non-negative integer")
-        if role == ROLE_VIDEO:
-            videos += 1
-        if role == ROLE_FILE and name == ENVELOPE:
-            findings.append(f"{label}: the envelope cannot be its own subject")
-    if videos > 1:
-        findings.append(f"statement: {videos} redacted-video subjects, at most 1 allowed")
-    return (None if len(findings) > bad else subjects), predicate
+    return VerifiedPackage(path, statement, verified.payload, author, tuple(checked), verified.signers,
+                           tuple(notes))

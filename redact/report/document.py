@@ -22,6 +22,7 @@ import numpy as np
 
 from redact import __version__, jsonio
 from redact.errors import InputError, PackageError, VerificationFailed
+from redact.provenance.contents import PackageContents, UnverifiedPackage, VerifiedPackage
 from redact.provenance.log import DISCLOSURE_FIELDS, utc_now
 from redact.provenance.package import ENVELOPE, LOG, QUALITY, REVIEW, SKELETONS, open_package, read_statement_unverified
 from redact.report.plots import Timeline, data_uri, redacted_frames, thumbnail_jpeg, timeline_svg
@@ -134,39 +135,37 @@ class _Contents:
     problems: list[str]
 
 
-def _read_log(reader, problems: list[str]) -> list[dict]:
+def _read_log(contents: PackageContents, problems: list[str]) -> list[dict]:
     entries: list[dict] = []
-    if LOG not in reader.files:
+    if not contents.has(LOG):
         problems.append(f"{LOG} is missing")
         return entries
     try:
-        with reader.open(LOG) as f:
-            for n, line in jsonio.iter_lines(f, LOG):
-                try:
-                    entries.append(jsonio.loads_object(line, f"{LOG} line {n}"))
-                except PackageError as e:
-                    problems.append(str(e))
-    except PackageError as e:
+        for n, line in contents.lines(LOG):
+            try:
+                entries.append(jsonio.loads_object(line, f"{LOG} line {n}"))
+            except PackageError as e:
+                problems.append(str(e))
+    except (PackageError, VerificationFailed) as e:
         problems.append(str(e))
     return entries
 
 
-def _read_quality(reader, problems: list[str]) -> Timeline | None:
-    if QUALITY not in reader.files:
+def _read_quality(contents: PackageContents, problems: list[str]) -> Timeline | None:
+    if not contents.has(QUALITY):
         problems.append(f"{QUALITY} is missing: no timeline")
         return None
     cols: dict[str, list] = {k: [] for k in ("t", "people", "observed", "mean_conf", "luma_mean", "fault")}
     try:
-        with reader.open(QUALITY) as f:
-            for n, line in jsonio.iter_lines(f, QUALITY):
-                if n > MAX_QUALITY_ROWS:
-                    problems.append(f"{QUALITY}: more than {MAX_QUALITY_ROWS} rows; the timeline is cut there")
-                    break
-                row = jsonio.loads_object(line, f"{QUALITY} line {n}")
-                for k in ("t", "people", "observed", "mean_conf", "luma_mean"):
-                    cols[k].append(_num(row.get(k)))
-                cols["fault"].append(row.get("fault") is True)
-    except PackageError as e:
+        for n, line in contents.lines(QUALITY):
+            if n > MAX_QUALITY_ROWS:
+                problems.append(f"{QUALITY}: more than {MAX_QUALITY_ROWS} rows; the timeline is cut there")
+                break
+            row = jsonio.loads_object(line, f"{QUALITY} line {n}")
+            for k in ("t", "people", "observed", "mean_conf", "luma_mean"):
+                cols[k].append(_num(row.get(k)))
+            cols["fault"].append(row.get("fault") is True)
+    except (PackageError, VerificationFailed) as e:
         problems.append(f"{e} (the timeline shows the rows before it)")
     if not cols["t"]:
         return None
@@ -178,13 +177,13 @@ def _read_quality(reader, problems: list[str]) -> Timeline | None:
     return Timeline(t, a["people"], a["observed"], a["mean_conf"], a["luma_mean"], a["fault"])
 
 
-def _read_review(reader, problems: list[str]) -> tuple[list[dict], dict]:
-    if REVIEW not in reader.files:
+def _read_review(contents: PackageContents, problems: list[str]) -> tuple[list[dict], dict]:
+    if not contents.has(REVIEW):
         problems.append(f"{REVIEW} is missing: no review ranges")
         return [], {}
     try:
-        doc = jsonio.loads(reader.read(REVIEW, REVIEW_LIMIT), REVIEW, REVIEW_LIMIT)
-    except PackageError as e:
+        doc = jsonio.loads(contents.read_bytes(REVIEW, REVIEW_LIMIT), REVIEW, REVIEW_LIMIT)
+    except (PackageError, VerificationFailed) as e:
         problems.append(str(e))
         return [], {}
     items = doc.get("ranges") if isinstance(doc, dict) else None
@@ -198,26 +197,31 @@ def _read_review(reader, problems: list[str]) -> tuple[list[dict], dict]:
     return ranges, _obj(doc, "rules")
 
 
-def _read(package: Path, verified_statement: dict | None) -> _Contents:
+def _read(package: Path, verified: VerifiedPackage | None) -> _Contents:
+    """Everything the report shows from the package: through the verified package when verification
+    passed (each file re-checked against its signed hash), else read unverified for display (a
+    statement that cannot be parsed is a problem listed, and the other files are still shown)."""
     problems: list[str] = []
-    statement: dict = verified_statement or {}
-    log: list[dict] = []
-    timeline = None
-    ranges: list[dict] = []
-    rules: dict = {}
+    statement: dict = {}
+    contents: PackageContents | None = verified
     try:
         with open_package(package) as reader:
             problems.extend(reader.problems)
-            if verified_statement is None:
+            if contents is None:
                 try:
-                    statement, _ = read_statement_unverified(reader)
+                    stmt, hint = read_statement_unverified(reader)
                 except PackageError as e:
                     problems.append(str(e))
-            log = _read_log(reader, problems)
-            timeline = _read_quality(reader, problems)
-            ranges, rules = _read_review(reader, problems)
+                    stmt, hint = None, None
+                contents = UnverifiedPackage(package, stmt, hint, frozenset(reader.files))  # type: ignore[arg-type]
     except (PackageError, OSError) as e:
         problems.append(f"the package cannot be read: {e}")
+        return _Contents(statement, [], None, [], {}, problems)
+    if contents.statement is not None:
+        statement = contents.statement.to_json()
+    log = _read_log(contents, problems)
+    timeline = _read_quality(contents, problems)
+    ranges, rules = _read_review(contents, problems)
     return _Contents(statement, log, timeline, ranges, rules, problems)
 
 
@@ -550,13 +554,13 @@ def make_report(package: Path, trusted_keys: list, video: Path | None = None,
     if not trusted_keys:
         raise InputError("no trusted public key given; pass at least one --trusted-key NAME.public.pem")
     _check_is_package(package)
+    result: VerifiedPackage | None = None
     try:
         result = verify_package(package, trusted_keys, source=source, video=video)
         verified, key_id, checked, findings = True, result.key_id, result.checked, ()
-        statement: dict | None = result.statement
     except VerificationFailed as e:
-        verified, key_id, checked, findings, statement = False, None, (), tuple(e.findings), None
-    contents = _read(package, statement)
+        verified, key_id, checked, findings = False, None, (), tuple(e.findings)
+    contents = _read(package, result)
     pred = _obj(contents.statement, "predicate")
 
     thumbs: dict = {}

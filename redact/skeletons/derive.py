@@ -20,34 +20,22 @@ the tool numbers tracks in order of first appearance, that order still shows in 
 
 from __future__ import annotations
 
-import hashlib
 import json
 import os
 import shutil
 import tempfile
 from collections.abc import Sequence
 from dataclasses import dataclass, replace
-from fractions import Fraction
 from pathlib import Path
 
 from redact import __version__, jsonio
-from redact.errors import InputError, OutputError, PackageError, VerificationFailed
+from redact.errors import InputError, OutputError, PackageError
+from redact.provenance.contents import VerifiedPackage
 from redact.provenance.log import TransformLog, utc_now
-from redact.provenance.package import (
-    ENVELOPE,
-    LOG,
-    QUALITY,
-    REVIEW,
-    ROLE_FILE,
-    SKELETONS,
-    TRACKS,
-    open_package,
-    write_package,
-)
+from redact.provenance.package import ENVELOPE, LOG, QUALITY, REVIEW, SKELETONS, TRACKS, write_package
+from redact.provenance.predicate import Disclosure, ParentRecord, Predicate, ToolRecord
 from redact.skeletons.privacy import PrivacyOptions, apply_privacy_file, parse_keypoints
 
-#: Predicate keys carried over from the parent as they are (what the source, model and run were).
-CARRIED_KEYS = ("source", "model", "parameters", "review", "faults")
 _PEOPLE = b'"people":['
 _ROW_END = b"]}\n"
 _SPLIT = b'},{"id":'
@@ -227,39 +215,24 @@ class DerivedPackage:
     summary: dict
 
 
-def _source_geometry(predicate: dict) -> tuple[tuple[int, int] | None, float | None]:
-    src = predicate.get("source") if isinstance(predicate.get("source"), dict) else {}
-    w, h = src.get("width"), src.get("height")
-    size = (w, h) if all(isinstance(v, int) and not isinstance(v, bool) and v > 0 for v in (w, h)) else None
-    fps = None
-    try:
-        fps = float(Fraction(str(src.get("fps")))) if src.get("fps") is not None else None
-    except (ValueError, ZeroDivisionError):
-        fps = None
-    return size, fps
+def _source_geometry(predicate: Predicate) -> tuple[tuple[int, int] | None, float | None]:
+    src = predicate.source
+    size = (src.width, src.height) if src.width > 0 and src.height > 0 else None
+    return size, src.fps_value
 
 
-def _copy_verified(parent: Path, staging: Path, subjects: dict[str, dict]) -> list[str]:
-    """Copy the parent's package files except envelope and log, checking each against its signed hash
-    while copying (the parent could change between verification and copy)."""
+def _copy_verified(parent: VerifiedPackage, staging: Path) -> list[str]:
+    """Copy the parent's package files except envelope and log through the verified package, so each
+    is checked against its signed hash as it is read (the parent could change after verification)."""
     copied = []
-    with open_package(parent) as reader:
-        for name in sorted(reader.files):
-            if name in (ENVELOPE, LOG):
-                continue
-            want = subjects.get(name)
-            if want is None:
-                raise VerificationFailed([f"{name}: unexpected file (not named in the signed statement)"])
-            dst = staging / name
-            dst.parent.mkdir(parents=True, exist_ok=True)
-            h = hashlib.sha256()
-            with reader.open(name) as f, open(dst, "xb") as out:
-                while chunk := f.read(1 << 20):
-                    h.update(chunk)
-                    out.write(chunk)
-            if h.hexdigest() != want["digest"]["sha256"]:
-                raise VerificationFailed([f"{name}: changed after verification (SHA-256 differs from the signed one)"])
-            copied.append(name)
+    for name in sorted(parent.statement.files):
+        if name in (ENVELOPE, LOG):
+            continue
+        dst = staging / name
+        dst.parent.mkdir(parents=True, exist_ok=True)
+        with parent.open(name) as f, open(dst, "xb") as out:
+            shutil.copyfileobj(f, out, 1 << 20)
+        copied.append(name)
     return copied
 
 
@@ -280,20 +253,19 @@ def derive(parent: Path, out: Path, trusted_keys: Sequence, signer, options: Pri
         raise OutputError(f"{out}: would write inside the parent package; choose a place outside it")
     verified = verify_package(parent, trusted_keys)  # VerificationFailed lists every finding
     pred = verified.predicate
-    log_info = pred.get("log") if isinstance(pred.get("log"), dict) else {}
-    parent_rec = {"statement_sha256": hashlib.sha256(verified.payload).hexdigest(), "key_id": verified.key_id,
-                  "log_head": log_info.get("head")}
-    parent_privacy = pred.get("privacy") if isinstance(pred.get("privacy"), dict) else None
-    if parent_privacy and isinstance(parent_privacy.get("drop_keypoints"), list) and parent_privacy["drop_keypoints"]:
+    parent_rec = ParentRecord(verified.statement_sha256, verified.key_id,
+                              None if pred.log is None else pred.log.head, pred.privacy)
+    parent_privacy = pred.privacy
+    dropped = parent_privacy.get("drop_keypoints")
+    if isinstance(dropped, (list, tuple)) and dropped:
         # Keypoints the parent already dropped hold zeros: keep them dropped, or noise and
         # proportion normalisation would treat the zeros as positions.
         try:
-            kept_dropped = parse_keypoints([str(k) for k in parent_privacy["drop_keypoints"]])
+            kept_dropped = parse_keypoints([str(k) for k in dropped])
         except InputError:
             raise InputError("the parent's privacy record names unknown dropped keypoints") from None
         options = replace(options, drop_keypoints=tuple(sorted(set(options.drop_keypoints) | set(kept_dropped))))
     frame_size, fps = _source_geometry(pred)
-    subjects = {s["name"]: s for s in verified.subjects if s["annotations"]["role"] == ROLE_FILE}
 
     try:
         partial = Path(tempfile.mkdtemp(prefix=f".{out.name}.derive-partial-", dir=out.parent))
@@ -302,29 +274,25 @@ def derive(parent: Path, out: Path, trusted_keys: Sequence, signer, options: Pri
     staging = partial / "package"  # created with the usual permissions (mkdtemp's are 0700)
     try:
         staging.mkdir()
-        copied = _copy_verified(parent, staging, subjects)
+        copied = _copy_verified(verified, staging)
         log = TransformLog(staging / LOG)
-        log.append("derive", parent_statement_sha256=parent_rec["statement_sha256"],
-                   parent_key_id=parent_rec["key_id"], parent_log_head=parent_rec["log_head"],
-                   parent_log_entries=log_info.get("entries"), copied=copied,
+        log.append("derive", parent_statement_sha256=parent_rec.statement_sha256,
+                   parent_key_id=parent_rec.key_id, parent_log_head=parent_rec.log_head,
+                   parent_log_entries=None if pred.log is None else pred.log.entries, copied=copied,
                    note="new log; the parent's log stays with the parent package")
         summary = rewrite_skeleton_files(staging, options, frame_size, fps)
         record = options.to_record()
         log.append("privacy", **record, summary=summary)
         if disclosure:
             log.disclosure(**disclosure)
-        predicate = {k: pred[k] for k in CARRIED_KEYS if k in pred}
-        predicate.update({
-            "privacy": record,
-            "parent": {**parent_rec, "privacy": parent_privacy},
-            "disclosure": dict(disclosure or {}),
-            "tool": {"name": "redact", "version": __version__},
-            "created": utc_now(),
-        })
+        # Carried from the parent as they are: what the source, model and run were.
+        predicate = Predicate(source=pred.source, model=pred.model, parameters=pred.parameters, privacy=record,
+                              disclosure=Disclosure.of(disclosure), review=pred.review, faults=pred.faults,
+                              parent=parent_rec, tool=ToolRecord("redact", __version__), created=utc_now())
         payload = write_package(staging, out, predicate, signer, video=None, archive=archive)
     finally:
         shutil.rmtree(partial, ignore_errors=True)  # the package inside was moved away on success
-    return DerivedPackage(out, payload, signer.key_id, parent_rec, record, summary)
+    return DerivedPackage(out, payload, signer.key_id, parent_rec.to_json(), record, summary)
 
 
 def derive_package(parent: Path, out: Path, trusted_keys: list, signer, options: PrivacyOptions,

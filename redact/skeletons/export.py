@@ -23,7 +23,6 @@ COCO keypoints are pixels: rows in frame or track units are refused for this for
 
 from __future__ import annotations
 
-import hashlib
 import json
 import os
 import secrets
@@ -34,7 +33,9 @@ from pathlib import Path
 import numpy as np
 
 from redact.errors import InputError, OutputError, PackageError, VerificationFailed
+from redact.provenance.contents import PackageContents
 from redact.provenance.package import open_package
+from redact.provenance.predicate import Predicate
 from redact.skeletons.privacy import decode_row_extras
 from redact.skeletons.rows import decode_row
 from redact.vision.skeleton import KEYPOINT_NAMES, LINKS_1BASED
@@ -46,29 +47,31 @@ SKELETONS = "skeletons.jsonl"
 @dataclass(frozen=True)
 class PackageSource:
     """The skeleton lines of a package and what was checked: `lines` streams skeletons.jsonl once;
-    with trusted keys the package was verified first and `predicate` / `key_id` are the signed ones."""
+    with trusted keys the package was verified first, `predicate` / `key_id` are the signed ones and
+    the lines come from a copy just re-checked against the signed hash."""
 
     lines: Iterator[bytes]
     verified: bool
     key_id: str | None = None
-    predicate: dict | None = None
+    predicate: Predicate | None = None
 
 
-def _stream(package: Path, want: dict | None) -> Iterator[bytes]:
-    """The lines of skeletons.jsonl read in place (directory or .tar); with `want` (the signed subject),
-    the bytes read are hashed and must match it, or VerificationFailed is raised at the end (before
-    any export is renamed into place): the package may change between verification and reading."""
+def _stream(contents: PackageContents) -> Iterator[bytes]:
+    """The lines of skeletons.jsonl read through the package contents (verified reads re-check the
+    signed hash before the first line is handed out)."""
+    if not contents.has(SKELETONS):
+        raise PackageError(f"{contents.path}: {SKELETONS} is missing or not a regular file")
+    for _, line in contents.lines(SKELETONS):
+        yield line
+
+
+def _stream_unsigned(package: Path) -> Iterator[bytes]:
+    """The lines of skeletons.jsonl of a package read without any check (no trusted key given)."""
     with open_package(package) as reader:
         if SKELETONS not in reader.files:
             raise PackageError(f"{package}: {SKELETONS} is missing or not a regular file")
-        h, size = hashlib.sha256(), 0
         with reader.open(SKELETONS) as f:
-            for line in f:
-                h.update(line)
-                size += len(line)
-                yield line
-    if want is not None and (h.hexdigest() != want["digest"]["sha256"] or size != want["annotations"]["bytes"]):
-        raise VerificationFailed([f"{SKELETONS}: changed after verification (SHA-256 differs from the signed one)"])
+            yield from f
 
 
 def read_package(package: str | Path, trusted_keys: Sequence | None = None) -> PackageSource:
@@ -79,15 +82,13 @@ def read_package(package: str | Path, trusted_keys: Sequence | None = None) -> P
     if not (package.is_dir() or package.is_file()):
         raise InputError(f"{package}: not a package directory or .tar file")
     if not trusted_keys:
-        return PackageSource(_stream(package, None), False)
+        return PackageSource(_stream_unsigned(package), False)
     from redact.provenance.verify import verify_package
 
     result = verify_package(package, list(trusted_keys))
-    want = next((s for s in result.subjects if s["name"] == SKELETONS and s["annotations"]["role"] == "package-file"),
-                None)
-    if want is None:
+    if not result.has(SKELETONS):
         raise VerificationFailed([f"{SKELETONS}: not named in the signed statement"])
-    return PackageSource(_stream(package, want), True, result.key_id, result.predicate)
+    return PackageSource(_stream(result), True, result.key_id, result.predicate)
 
 
 def read_package_lines(package: str | Path, trusted_keys: Sequence | None = None) -> Iterator[bytes]:
@@ -285,9 +286,8 @@ def export_package(package: str | Path, fmt: str, out: str | Path, gt_out: str |
         summary = export_npz(src.lines, out, force)
     else:
         if frame_size is None and src.predicate is not None:
-            s = src.predicate.get("source") if isinstance(src.predicate.get("source"), dict) else {}
-            w, h = s.get("width"), s.get("height")
-            if all(isinstance(v, int) and not isinstance(v, bool) and v > 0 for v in (w, h)):
+            w, h = src.predicate.source.width, src.predicate.source.height
+            if w > 0 and h > 0:
                 frame_size = (w, h)
         summary = export_coco(src.lines, out, gt_out, frame_size, force)
     summary["verified"] = src.verified
