@@ -38,6 +38,12 @@ SEED = bytes(range(32))  # a fixed test key (not a published vector; any 32 byte
 N_FRAMES = 6
 
 
+def FIXED_CLOCK() -> str:
+    """Log time of every entry of the hand-made packages, so they are the same bytes on every run."""
+    return "2025-01-01T00:00:00.000000Z"
+
+
+
 def synthetic_rows() -> bytes:
     out = []
     for f in range(N_FRAMES):
@@ -65,7 +71,7 @@ def build_package(root: Path, signer: signing.Signer, *, archive: bool = False, 
     (staging / package.QUALITY).write_bytes(b"".join(b'{"frame":%d,"luma":0.5}\n' % i for i in range(N_FRAMES)))
     (staging / package.REVIEW).write_bytes(jsonio.dumps({"ranges": [{"frame_start": 4, "frame_end": 5, "reasons": ["track lost"]}]}))
     (staging / package.FRAMES).write_bytes(merkle.format_frame_digests(digests))
-    log = TransformLog(staging / package.LOG, clock=lambda: "2025-01-01T00:00:00.000000Z")
+    log = TransformLog(staging / package.LOG, clock=FIXED_CLOCK)
     log.append("decode", frames=N_FRAMES)
     log.append("redaction", style="blur", frames=[0, N_FRAMES - 1])
     predicate = test_predicate(
@@ -73,7 +79,8 @@ def build_package(root: Path, signer: signing.Signer, *, archive: bool = False, 
                      bytes=source.stat().st_size, duration=0.24, fps="25/1", frames=N_FRAMES,
                      width=64, height=48, frames_root=merkle.root(digests).hex()))
     final = root / (f"{name}.tar" if archive else name)
-    payload = package.write_package(staging, final, predicate, signer, video=red if video else None, archive=archive)
+    payload = package.write_package(staging, final, predicate, signer, video=red if video else None, archive=archive,
+                                    clock=FIXED_CLOCK)
     return {"path": final, "source": source, "video": red, "payload": payload, "predicate": predicate,
             "digests": digests}
 

@@ -120,7 +120,7 @@ def test_inspect_cli_refuses_a_swapped_file(pkg, monkeypatch):
     from redact.cli import main
 
     swap_after_verify(monkeypatch, pkg["path"], SKELETONS)
-    r = CliRunner().invoke(main, ["inspect", str(pkg["path"]), "--key", str(pkg["pub"])])
+    r = CliRunner().invoke(main, ["inspect", str(pkg["path"]), "--trusted-key", str(pkg["pub"])])
     assert r.exit_code == 1 and "changed after verification" in r.stderr, r.output
     assert "Traceback" not in r.output
 
@@ -140,7 +140,7 @@ def test_frame_proof_refuses_a_swapped_digest_file(pkg, monkeypatch):
 
     swap_after_verify(monkeypatch, pkg["path"], FRAMES)
     out = pkg["tmp"] / "f.proof.json"
-    r = CliRunner().invoke(main, ["frame-proof", str(pkg["path"]), "--key", str(pkg["pub"]), "--frame", "1",
+    r = CliRunner().invoke(main, ["frame-proof", str(pkg["path"]), "--trusted-key", str(pkg["pub"]), "--frame", "1",
                                   "--out", str(out)])
     assert r.exit_code == 1 and "frames.sha256: changed after verification" in r.stderr, r.output
     assert not out.exists()

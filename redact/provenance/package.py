@@ -26,7 +26,7 @@ from redact import jsonio
 from redact.errors import OutputError, PackageError
 from redact.hashing import sha256_file, sha256_stream
 from redact.provenance import merkle, signing
-from redact.provenance.log import TransformLog
+from redact.provenance.log import TransformLog, utc_now
 from redact.provenance.predicate import PREDICATE_TYPE, LogRecord, Predicate
 from redact.provenance.statement import ROLE_FILE, ROLE_VIDEO, Statement, Subject, parse_statement
 
@@ -292,12 +292,13 @@ def _frames_root(staging: Path, files: dict[str, int], predicate: Predicate) -> 
 
 
 def write_package(staging_dir: Path, final_path: Path, predicate: Predicate, signer: signing.Signer,
-                  video: Path | None = None, archive: bool = False) -> bytes:
+                  video: Path | None = None, archive: bool = False, clock: Callable[[], str] = utc_now) -> bytes:
     """Sign the files of `staging_dir` and move them into place as a package; returns the payload bytes.
 
     The staging directory is consumed: renamed to `final_path`, or written as a .tar to
     `final_path` (through a temporary name) and then removed. The signing step is logged before
-    the statement is built, so the signed log head covers it.
+    the statement is built, so the signed log head covers it; `clock` gives its time (tests pass
+    a fixed one so that their packages are byte-identical from run to run).
     """
     staging, final = Path(staging_dir), Path(final_path)
     if staging.is_symlink() or not staging.is_dir():
@@ -322,7 +323,7 @@ def write_package(staging_dir: Path, final_path: Path, predicate: Predicate, sig
             raise OutputError(f"redacted video {video} does not exist")
 
     predicate = _frames_root(staging, first.files, predicate)
-    log = TransformLog(staging / LOG)
+    log = TransformLog(staging / LOG, clock=clock)
     log.append("sign", key_id=signer.key_id, predicate_type=PREDICATE_TYPE,
                files=sorted(set(first.files) | {LOG}), video=video_name, archive=bool(archive))
     reader = DirectoryReader(staging)  # again: the log has grown
