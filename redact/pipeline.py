@@ -16,14 +16,14 @@ import tempfile
 import time
 from collections import deque
 from collections.abc import Callable, Iterable
-from dataclasses import asdict, dataclass, field, replace
+from dataclasses import asdict, dataclass, field
 from pathlib import Path
 
 import numpy as np
 
 from redact import __version__
-from redact.errors import InputError, OutputError, RedactError
-from redact.media.stages import WriteBehind, map_ahead, read_ahead
+from redact.errors import InputError, OutputError
+from redact.media.stages import WriteBehind, read_ahead
 from redact.provenance import package
 from redact.provenance.log import TransformLog, utc_now
 from redact.provenance.predicate import (
@@ -40,8 +40,9 @@ from redact.redaction.quality import QualityMonitor, ReviewRange, ReviewRules, e
 from redact.redaction.render import RenderSettings, obscure_all, obscurer_for, render_frame
 from redact.skeletons import rows
 from redact.vision.pose import PoseEstimator, PoseSettings
-from redact.vision.records import Poses, Tracks
-from redact.vision.track import Tracker, TrackerConfig
+from redact.vision.records import Tracks
+from redact.vision.track import TrackerConfig
+from redact.vision.tracking import TrackIdSettings, TrackingPass
 
 VIDEO_NAME = "redacted.mp4"
 #: Upper bound of frames inferred at once (common practice: beyond a few, ordering and memory cost more than they gain).
@@ -85,6 +86,11 @@ class ProcessSettings:
             raise InputError(f"detect-every must be between 1 and 10 frames, got {self.detect_every}")
         if not 0 <= self.crf <= 51:
             raise InputError(f"crf must be between 0 and 51, got {self.crf}")
+
+    @property
+    def ids(self) -> TrackIdSettings:
+        """The settings that decide track ids (a track sheet made with the same ones names the same people)."""
+        return TrackIdSettings(self.pose, self.tracker, self.coast_seconds, self.detect_every)
 
     @property
     def model_threads(self) -> int:
@@ -147,11 +153,8 @@ class ProcessResult:
 
 
 def tracker_config_for(settings: ProcessSettings, fps: float) -> TrackerConfig:
-    """The tracker configuration a run uses: coast time converted to frames at the source rate.
-
-    Anything that must reproduce a run's track ids (the track sheet, a redaction plan) uses this.
-    """
-    return replace(settings.tracker, max_coast_frames=int(round(settings.coast_seconds * (fps or 25.0))))
+    """The tracker configuration a run uses: coast time converted to frames at the source rate."""
+    return settings.ids.tracker_config(fps)
 
 
 def inference_workers(settings: ProcessSettings, estimator) -> int:
@@ -159,15 +162,6 @@ def inference_workers(settings: ProcessSettings, estimator) -> int:
     from several threads at once (`concurrent`, as PoseEstimator), else 1 (test doubles that count
     their calls, for instance)."""
     return settings.model_frames if getattr(estimator, "concurrent", False) else 1
-
-
-def detect(estimator, frame, detect_every: int) -> Poses | None:
-    """The people in one decoded frame, or None on frames the stride skips; raises on a frame the
-    decoder flagged as damaged. Independent of other frames, so frames may be detected in parallel.
-    The track sheet calls this too, so that its ids are the ones a run with the same settings assigns."""
-    if frame.corrupt:
-        raise RedactError("the decoder reported damaged data in this frame")
-    return estimator.estimate(frame.image) if frame.index % detect_every == 0 else None
 
 
 def frame_ranges(indices: list[int]) -> list[list[int]]:
@@ -372,7 +366,7 @@ def process_video(source: str | Path, out_dir: str | Path, signer, settings: Pro
         from redact.redaction.plan import load_plan
 
         plan_obj = load_plan(plan, info)
-        plan_obj.check_settings(settings, entry.sha256)
+        plan_obj.check_settings(settings.ids, entry.sha256)
     if estimator is None:
         estimator = PoseEstimator.default(settings.pose, settings.model_threads)  # hash check before output
     tracker_cfg = tracker_config_for(settings, float(info.fps))
@@ -409,7 +403,7 @@ def _run(source, info, out_dir, staging, video_final, pkg_final, signer, setting
         log.append("background", samples=settings.background_samples,
                    valid_fraction=round(float(background.valid.mean()), 4))
 
-    tracker = Tracker(tracker_cfg)
+    tracking = TrackingPass(estimator, settings.ids, float(info.fps), inference_workers(settings, estimator))
     monitor = QualityMonitor(settings.review)
     stats = _Stats()
     lookback = _Lookback(int(round(settings.lookback_seconds * float(info.fps or 25))), obscurer,
@@ -426,20 +420,14 @@ def _run(source, info, out_dir, staging, video_final, pkg_final, signer, setting
         # Detection may run on several frames at once; tracking stays here, in frame order.
         # Rendering, the look-back, rows and quality run in one thread behind, overlapping the
         # next inferences.
-        workers = inference_workers(settings, estimator)
         with WriteBehind(finisher.finish, depth=2) as finishing:
-            frames = read_ahead(reader.frames(), depth=4)
-            detected = map_ahead(lambda f: detect(estimator, f, settings.detect_every), frames, workers)
-            for frame, poses, failed in detected:
-                tracks = decision = error = None
-                try:
-                    if failed is not None:
-                        raise failed
-                    tracks = tracker.update(poses, frame.t, frame.index)
-                    if plan is not None:
+            for item in tracking.run(read_ahead(reader.frames(), depth=4)):
+                frame, tracks, decision, error = item.frame, item.tracks, None, item.error
+                if tracks is not None and plan is not None:
+                    try:
                         decision = plan.decide(frame.index, frame.t, tracks, frame.image.shape)
-                except Exception as e:  # fail closed: the finisher obscures the whole frame
-                    tracks, error = None, type(e).__name__
+                    except Exception as e:  # fail closed: the finisher obscures the whole frame
+                        tracks, error = None, type(e).__name__
                 finishing.submit(frame, tracks, decision, error)
                 n_frames += 1
         for _, ready_pts, ready in lookback.flush():
@@ -459,7 +447,7 @@ def _run(source, info, out_dir, staging, video_final, pkg_final, signer, setting
     (pkg_dir / package.REVIEW).write_bytes(review_document(review, settings.review, n_frames))
     log.append("review", rules=asdict(settings.review), ranges=len(review), flagged_frames=monitor.flagged)
 
-    summaries = tracker.summary()
+    summaries = tracking.summary()
     if plan is not None:  # before anything is renamed into place: a bad track id leaves no output
         plan.check_end([s.id for s in summaries], reader.sha256)
         log.append("plan", **plan.record(), applied=plan.applied())

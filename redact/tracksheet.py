@@ -1,9 +1,9 @@
 """Track sheet: for the operator answering a request for footage, one picture per tracked person.
 
-`make_track_sheet` runs decode → pose → tracker with exactly the settings of `redact process`
-(PoseEstimator.default(settings.pose, settings.model_threads), as many frames at once,
-Tracker(tracker_config_for(settings, fps)), failed frames skipped the same way), so its track ids are the ids a run
-with the same settings assigns. The operator finds the requester's id(s) on the sheet and writes
+`make_track_sheet` runs decode → pose → tracker through the loop `redact process` runs
+(redact.vision.tracking.TrackingPass with settings.ids, PoseEstimator.default(settings.pose,
+settings.model_threads), as many frames at once), so its track ids are the ids a run with the
+same settings assigns. The operator finds the requester's id(s) on the sheet and writes
 them into a redaction plan (redact.redaction.plan); the sheet's plan-template.json carries the source hash
 and settings fingerprint the plan needs.
 
@@ -25,10 +25,10 @@ from pathlib import Path
 import numpy as np
 
 from redact.errors import OutputError
-from redact.media.stages import map_ahead
-from redact.pipeline import ProcessSettings, detect, inference_workers, tracker_config_for
+from redact.pipeline import ProcessSettings, inference_workers
 from redact.redaction.plan import PLAN_VERSION, ids_fingerprint
 from redact.vision.pose import PoseEstimator
+from redact.vision.tracking import TrackingPass
 
 TRACKS_NAME = "tracks.json"
 README_NAME = "README.txt"
@@ -115,33 +115,27 @@ def _json_bytes(doc) -> bytes:
 
 
 def _track_pass(source: Path, settings: ProcessSettings, estimator, fps: float):
-    """First pass: every frame through pose and tracker, exactly as redact.pipeline does.
+    """First pass: every frame through redact.vision.tracking.TrackingPass, the loop the pipeline runs.
 
     Returns (tracker summaries, {id: _Seen}, frames decoded, source sha256, stopped_early).
     """
     from redact.media.video import VideoReader
-    from redact.vision.track import Tracker
 
-    tracker = Tracker(tracker_config_for(settings, fps))
+    tracking = TrackingPass(estimator, settings.ids, fps, inference_workers(settings, estimator))
     seen: dict[int, _Seen] = {}
-    every = settings.detect_every
-    workers = inference_workers(settings, estimator)  # as the pipeline
     with VideoReader(source, threads=0) as reader:
         n = 0
-        for frame, poses, failed in map_ahead(lambda f: detect(estimator, f, every), reader.frames(), workers):
+        for item in tracking.run(reader.frames()):
             n += 1
-            if failed is not None:  # the pipeline skips the tracker on a failed frame: so do we
+            if item.tracks is None:  # a failed frame: nobody to picture
                 continue
-            try:
-                tracks = tracker.update(poses, frame.t, frame.index)
-            except Exception:  # noqa: BLE001 - mirror the pipeline's fail-closed skip
-                continue
+            tracks = item.tracks
             for k in np.nonzero(tracks.observed)[0]:
                 s = seen.setdefault(int(tracks.ids[k]), _Seen())
-                s.frames.append(frame.index)
+                s.frames.append(item.frame.index)
                 s.boxes.append(np.array(tracks.boxes[k], np.float64))
         sha, stopped = reader.sha256, reader.stopped_early
-    return tracker.summary(), seen, n, sha, stopped
+    return tracking.summary(), seen, n, sha, stopped
 
 
 def _crop_pass(source: Path, wanted: dict[int, list[tuple[int, np.ndarray]]]) -> dict[int, list[np.ndarray]]:
@@ -214,7 +208,7 @@ def _write_sheet(source: Path, info, staging: Path, settings: ProcessSettings, e
                       "first_t": round(sm.first_t, 6), "last_t": round(sm.last_t, 6),
                       "frames_observed": sm.frames_observed, "frames_predicted": sm.frames_predicted,
                       "image": name, "shown": shown.get(sm.id, [])})
-    fingerprint = ids_fingerprint(settings, model_sha)
+    fingerprint = ids_fingerprint(settings.ids, model_sha)
     doc = {"kind": "redact track sheet", "version": 1, "sensitive": True,
            "note": "SENSITIVE: for the operator only; never disclose or package; delete after use.",
            "source": {"name": source.name, "sha256": sha, "frames": n_frames, "width": info.width,

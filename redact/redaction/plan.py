@@ -32,7 +32,7 @@ import re
 from collections.abc import Iterable
 from dataclasses import asdict, dataclass
 from pathlib import Path
-from typing import Any
+from typing import Any, Protocol
 
 import numpy as np
 
@@ -41,6 +41,7 @@ from redact.errors import InputError, PackageError, PlanError, RedactError
 from redact.redaction.moving_box import MovingBox, box_pixels, parse_moving_box
 from redact.vision.costs import iou_matrix
 from redact.vision.records import Tracks
+from redact.vision.tracking import TrackIdSettings
 
 PLAN_VERSION = "redact-plan/1"
 #: Largest plan file accepted, in bytes (common practice: plans are hand-written, a few kB).
@@ -86,13 +87,21 @@ def _ids_phrase(ids: Iterable[int]) -> str:
     return f"the video has track{'s' if len(ids) > 1 else ''} {format_ids(ids)}"
 
 
-def ids_fingerprint(settings, model_sha256: str) -> str:
-    """SHA-256 hex over every setting that decides track ids: pose settings, tracker settings,
-    coast time, detection stride and the model's hash. A track sheet and a run agree on ids only when these agree
-    (and the source file is the same); render, encode and package settings do not matter."""
-    doc = {"pose": asdict(settings.pose), "tracker": asdict(settings.tracker),
-           "coast_seconds": settings.coast_seconds, "detect_every": int(getattr(settings, "detect_every", 1)),
-           "model_sha256": model_sha256}
+class _HasIdSettings(Protocol):
+    """A run's settings (redact.pipeline.ProcessSettings), which carry their id-deciding part."""
+
+    @property
+    def ids(self) -> TrackIdSettings: ...
+
+
+def ids_fingerprint(settings: TrackIdSettings | _HasIdSettings, model_sha256: str) -> str:
+    """SHA-256 hex over every setting that decides track ids (redact.vision.tracking.TrackIdSettings:
+    pose settings, tracker settings, coast time, detection stride) and the model's hash. A track
+    sheet and a run agree on ids only when these agree (and the source file is the same); render,
+    encode and package settings do not matter."""
+    ids = settings if isinstance(settings, TrackIdSettings) else settings.ids
+    doc = {"pose": asdict(ids.pose), "tracker": asdict(ids.tracker), "coast_seconds": ids.coast_seconds,
+           "detect_every": int(ids.detect_every), "model_sha256": model_sha256}
     return hashlib.sha256(jsonio.dumps(doc)).hexdigest()
 
 
@@ -235,7 +244,7 @@ class Plan:
 
     # -- checks the pipeline runs -------------------------------------------------------------
 
-    def check_settings(self, settings, model_sha256: str) -> None:
+    def check_settings(self, settings: TrackIdSettings | _HasIdSettings, model_sha256: str) -> None:
         """At the start of a run: the track ids of the plan came from the same settings and model."""
         if self.track_sheet is None:
             return
