@@ -36,6 +36,7 @@ from redact.provenance.predicate import (
     SourceRecord,
     ToolRecord,
 )
+from redact.ranges import frame_ranges
 from redact.redaction.quality import QualityMonitor, ReviewRange, ReviewRules, encode_quality_line, review_document
 from redact.redaction.render import RenderSettings, obscure_all, obscurer_for, render_frame
 from redact.skeletons import rows
@@ -162,17 +163,6 @@ def inference_workers(settings: ProcessSettings, estimator) -> int:
     from several threads at once (`concurrent`, as PoseEstimator), else 1 (test doubles that count
     their calls, for instance)."""
     return settings.model_frames if getattr(estimator, "concurrent", False) else 1
-
-
-def frame_ranges(indices: list[int]) -> list[list[int]]:
-    """Sorted frame indices → inclusive [start, end] ranges."""
-    out: list[list[int]] = []
-    for i in indices:
-        if out and i == out[-1][1] + 1:
-            out[-1][1] = i
-        else:
-            out.append([i, i])
-    return out
 
 
 def _check_paths(source: Path, out_dir: Path, archive: bool) -> tuple[Path, Path]:

@@ -122,11 +122,12 @@ def test_preprocess_letterbox_geometry():
     img = np.full((100, 300, 3), 255, np.uint8)
     tensor, box = preprocess(img, 128)
     assert tensor.shape == (1, 128, 128, 3) and tensor.dtype == np.float32
-    assert box == Letterbox(300.0, 0.0, 100.0)
+    # The one Letterbox record (redact.vision.boxes): scale 128/300, the 100 source px of top padding in input px.
+    assert box == Letterbox(128 / 300, 0.0, 100.0 * (128 / 300), 300, 100, 128, 128)
     assert tensor.min() == -1.0 and tensor.max() == 1.0  # zero border -> -1, white -> +1
     col = tensor[0, :, 64, 0]
     assert np.all(col[:40] == -1.0) and np.all(col[50:78] == 1.0) and np.all(col[-40:] == -1.0)
-    assert np.allclose(box.to_source(np.array([[0.5, 0.5]], np.float32)), [[150, 50]])
+    assert np.allclose(box.to_source(np.array([[0.5, 0.5]], np.float32) * 128), [[150, 50]])  # input centre
 
 
 # ---------------------------------------------------------------- against the original models

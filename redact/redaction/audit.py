@@ -50,16 +50,15 @@ from pathlib import Path
 import numpy as np
 
 from redact.errors import InputError
+from redact.ranges import frame_ranges
+from redact.redaction.render import FILL_GREY
+from redact.vision.boxes import greedy_nms, iou_matrix
 from redact.vision.models import DEFAULT_FACE_MODEL, FLOAT_POSE_MODEL
+from redact.vision.skeleton import HEAD_KEYPOINTS
 
 Box = tuple[float, float, float, float]  # x1, y1, x2, y2 in frame pixels
 Detection = tuple[Box, float]  # (box, score)
 
-# The redaction's solid fill (redact.redaction.render.FILL_GREY); repeated here so that importing the audit
-# does not pull in the renderer; tests/test_audit.py checks the two agree.
-FILL_GREY = 128
-# COCO-17 head keypoints: nose, left eye, right eye, left ear, right ear (cocodataset.org order).
-HEAD_KEYPOINTS = (0, 1, 2, 3, 4)
 
 
 @dataclass(frozen=True)
@@ -267,25 +266,16 @@ def merge_detections(boxes: np.ndarray, scores: np.ndarray, iou: float, containm
     """Greedy suppression over boxes [N,4] (x1,y1,x2,y2) and scores [N]; kept indices, best first.
 
     A box is dropped when its IoU with a kept box exceeds `iou` (the BlazeFace graph's 0.3) or
-    when more than `containment` of the smaller box's area lies inside a kept box.
+    when more than `containment` of the smaller box's area lies inside a kept box (the greedy
+    loop is redact.vision.boxes.greedy_nms; this rule is the audit's own).
     """
-    b = np.asarray(boxes, np.float64).reshape(-1, 4)
-    order = np.argsort(-np.asarray(scores, np.float64), kind="stable")
-    area = np.clip(b[:, 2] - b[:, 0], 0, None) * np.clip(b[:, 3] - b[:, 1], 0, None)
-    keep: list[int] = []
-    while order.size:
-        i = int(order[0])
-        keep.append(i)
-        rest = order[1:]
-        iw = np.clip(np.minimum(b[i, 2], b[rest, 2]) - np.maximum(b[i, 0], b[rest, 0]), 0, None)
-        ih = np.clip(np.minimum(b[i, 3], b[rest, 3]) - np.maximum(b[i, 1], b[rest, 1]), 0, None)
-        inter = iw * ih
-        union = area[i] + area[rest] - inter
-        ious = np.divide(inter, union, out=np.zeros_like(inter), where=union > 0)
-        smaller = np.minimum(area[i], area[rest])
+
+    def suppress(ious, inter, kept_area, rest_areas):
+        smaller = np.minimum(kept_area, rest_areas)
         cont = np.divide(inter, smaller, out=np.zeros_like(inter), where=smaller > 0)
-        order = rest[(ious <= iou) & (cont <= containment)]
-    return np.asarray(keep, np.int64)
+        return (ious > iou) | (cont > containment)
+
+    return greedy_nms(np.asarray(boxes, np.float64), np.asarray(scores, np.float64), suppress)
 
 
 def scan_faces(detector, image: np.ndarray, settings: AuditSettings) -> tuple[Detection, ...]:
@@ -397,30 +387,21 @@ class _Detectors:
 
 
 def iou(a: Box, b: Box) -> float:
-    """Intersection over union of two boxes (x1,y1,x2,y2); 0 when they do not overlap."""
-    iw = max(0.0, min(a[2], b[2]) - max(a[0], b[0]))
-    ih = max(0.0, min(a[3], b[3]) - max(a[1], b[1]))
-    inter = iw * ih
-    union = (a[2] - a[0]) * (a[3] - a[1]) + (b[2] - b[0]) * (b[3] - b[1]) - inter
-    return inter / union if inter > 0 and union > 0 else 0.0
+    """Intersection over union of two boxes (x1,y1,x2,y2); 0 when they do not overlap (redact.vision.boxes)."""
+    return float(iou_matrix(np.array(a, np.float64), np.array(b, np.float64))[0, 0])
 
 
 def survivors(source_faces: tuple[Detection, ...], faces: tuple[Detection, ...], threshold: float) -> tuple[int, ...]:
     """Indices of source faces overlapped (IoU > threshold) by any face of the audited frame."""
-    return tuple(i for i, (sb, _) in enumerate(source_faces) if any(iou(sb, fb) > threshold for fb, _ in faces))
+    if not source_faces or not faces:
+        return ()
+    overlap = iou_matrix(np.array([b for b, _ in source_faces]), np.array([b for b, _ in faces]))
+    return tuple(int(i) for i in np.flatnonzero((overlap > threshold).any(axis=1)))
 
 
 def finding_ranges(frames: tuple[FrameAudit, ...], step: int) -> tuple[tuple[int, int], ...]:
     """Inclusive [first, last] runs of scanned frames with findings; gaps up to `step` joined."""
-    out: list[list[int]] = []
-    for f in frames:
-        if not f.has_findings:
-            continue
-        if out and f.frame - out[-1][1] <= step:
-            out[-1][1] = f.frame
-        else:
-            out.append([f.frame, f.frame])
-    return tuple((a, b) for a, b in out)
+    return tuple((a, b) for a, b in frame_ranges((f.frame for f in frames if f.has_findings), gap=max(1, step)))
 
 
 def _check_pair(video: Path, source: Path):

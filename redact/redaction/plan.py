@@ -38,6 +38,7 @@ import numpy as np
 
 from redact import jsonio
 from redact.errors import InputError, PackageError, PlanError, RedactError
+from redact.ranges import RangeBuilder, format_ranges
 from redact.redaction.moving_box import MovingBox, box_pixels, parse_moving_box
 from redact.vision.costs import iou_matrix
 from redact.vision.records import Tracks
@@ -68,16 +69,7 @@ def _err(path: str, msg: str) -> PlanError:
 
 def format_ids(ids: Iterable[int]) -> str:
     """Sorted ids as compact ranges: [1,2,3,5] → "1-3, 5"."""
-    out: list[str] = []
-    s = sorted(set(int(i) for i in ids))
-    k = 0
-    while k < len(s):
-        j = k
-        while j + 1 < len(s) and s[j + 1] == s[j] + 1:
-            j += 1
-        out.append(str(s[k]) if j == k else f"{s[k]}-{s[j]}")
-        k = j + 1
-    return ", ".join(out)
+    return format_ranges(ids)
 
 
 def _ids_phrase(ids: Iterable[int]) -> str:
@@ -206,20 +198,14 @@ class _Hits:
     """Frames each entry applied to, as inclusive ranges (each frame counted once)."""
 
     def __init__(self) -> None:
-        self.ranges: dict[str, list[list[int]]] = {}
+        self.ranges: dict[str, RangeBuilder] = {}
 
     def add(self, key: str, frame: int) -> None:
-        r = self.ranges.setdefault(key, [])
-        if r and r[-1][0] <= frame <= r[-1][1]:
-            return
-        if r and frame == r[-1][1] + 1:
-            r[-1][1] = frame
-        else:
-            r.append([frame, frame])
+        self.ranges.setdefault(key, RangeBuilder()).add(frame)
 
     def summary(self, key: str) -> dict:
-        r = self.ranges.get(key, [])
-        return {"frames": sum(b - a + 1 for a, b in r), "ranges": [list(x) for x in r]}
+        r = self.ranges.get(key, RangeBuilder())
+        return {"frames": r.count(), "ranges": [list(x) for x in r.ranges]}
 
 
 class Plan:

@@ -25,6 +25,7 @@ from redact.errors import InputError, PackageError, VerificationFailed
 from redact.provenance.contents import PackageContents, UnverifiedPackage, VerifiedPackage
 from redact.provenance.log import DISCLOSURE_FIELDS, utc_now
 from redact.provenance.package import ENVELOPE, LOG, QUALITY, REVIEW, SKELETONS, open_package, read_statement_unverified
+from redact.ranges import format_ranges
 from redact.report.plots import Timeline, data_uri, redacted_frames, thumbnail_jpeg, timeline_svg
 
 #: Most review ranges that get a thumbnail (keeps the page printable; common practice).
@@ -457,13 +458,7 @@ def _review_section(contents: _Contents, thumbs: dict, thumb_note: str) -> str:
 
 def _spans(frames: list[int]) -> str:
     """Sorted frame numbers → "3, 7–9, 12" (inclusive ranges)."""
-    runs: list[list[int]] = []
-    for i in frames:
-        if runs and i == runs[-1][1] + 1:
-            runs[-1][1] = i
-        else:
-            runs.append([i, i])
-    return ", ".join(f"{a}" if a == b else f"{a}–{b}" for a, b in runs)
+    return format_ranges(frames, dash="–")
 
 
 def _fault_section(contents: _Contents) -> str:

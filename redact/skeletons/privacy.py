@@ -31,7 +31,7 @@ import math
 import os
 import secrets
 from collections.abc import Iterable, Iterator
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from fractions import Fraction
 
 import numpy as np
@@ -458,8 +458,7 @@ class PrivacyRun:
                         ids[tid] = nid
                         used.add(nid)
                     new.append(ids[tid])
-                tracks = Tracks(np.array(new, np.int64), tracks.boxes, tracks.scores, tracks.keypoints,
-                                tracks.observed, tracks.misses, tracks.margin)
+                tracks = replace(tracks, ids=np.array(new, np.int64))
             t, pts = row.t, row.pts
             if o.relative_time:
                 t = t - t0
@@ -513,7 +512,7 @@ class PrivacyRun:
         if drop.size:
             kp[:, drop] = 0.0
             s["keypoints_dropped"] += m * drop.size
-        return Tracks(tr.ids, boxes, tr.scores, kp, tr.observed, tr.misses, tr.margin), centres
+        return replace(tr, boxes=boxes, keypoints=kp), centres
 
 
 def apply_privacy(rows: Iterable[FrameRow], options: PrivacyOptions, frame_size: tuple[int, int] | None = None,

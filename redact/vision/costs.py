@@ -19,32 +19,11 @@ from dataclasses import dataclass
 import numpy as np
 
 from redact.errors import InputError
+from redact.vision.boxes import box_areas, iou_matrix
 from redact.vision.skeleton import NUM_KEYPOINTS, oks_matrix
 
 #: A cost function: (track boxes [N,4], track kps [N,17,3], det boxes [M,4], det kps [M,17,3]) -> [N,M].
 CostFn = Callable[[np.ndarray, np.ndarray, np.ndarray, np.ndarray], np.ndarray]
-
-
-def box_areas(boxes: np.ndarray) -> np.ndarray:
-    """Areas [N] float64 of boxes [N,4] x1,y1,x2,y2; degenerate (inverted) boxes have area 0."""
-    b = np.asarray(boxes, np.float64).reshape(-1, 4)
-    return np.clip(b[:, 2] - b[:, 0], 0.0, None) * np.clip(b[:, 3] - b[:, 1], 0.0, None)
-
-
-def iou_matrix(a: np.ndarray, b: np.ndarray) -> np.ndarray:
-    """Intersection over union [N,M] float64 of boxes a [N,4] and b [M,4] (x1,y1,x2,y2).
-
-    A pair whose union is empty (two zero-area boxes) has IoU 0.
-    """
-    a = np.asarray(a, np.float64).reshape(-1, 4)
-    b = np.asarray(b, np.float64).reshape(-1, 4)
-    iw = np.minimum(a[:, None, 2], b[None, :, 2]) - np.maximum(a[:, None, 0], b[None, :, 0])
-    ih = np.minimum(a[:, None, 3], b[None, :, 3]) - np.maximum(a[:, None, 1], b[None, :, 1])
-    inter = np.clip(iw, 0.0, None) * np.clip(ih, 0.0, None)
-    union = box_areas(a)[:, None] + box_areas(b)[None, :] - inter
-    out = np.zeros(inter.shape)
-    np.divide(inter, union, out=out, where=union > 0)
-    return out
 
 
 def keypoint_counts(kps: np.ndarray, min_conf: float) -> np.ndarray:

@@ -31,6 +31,7 @@ from typing import Any
 import numpy as np
 
 from redact.errors import InputError, ModelError
+from redact.vision.boxes import Letterbox, iou_matrix
 
 # Keypoint order of the model's 6 landmarks (mediapipe/python/solutions/face_detection.py,
 # FaceKeyPoint enum): the subject's right eye first.
@@ -148,23 +149,6 @@ def ssd_anchors(spec: DetectorSpec) -> np.ndarray:
     return anchors
 
 
-@dataclass(frozen=True)
-class Letterbox:
-    """Maps tensor-normalised coordinates (0..1 of the square input) back to source pixels.
-
-    x_src = x_norm * side - pad_x, y_src = y_norm * side - pad_y, where side = max(w, h)
-    is the square ROI that ImageToTensorCalculator uses with keep_aspect_ratio.
-    """
-
-    side: float
-    pad_x: float
-    pad_y: float
-
-    def to_source(self, xy: np.ndarray) -> np.ndarray:
-        """xy [...,2] normalised -> [...,2] source pixels."""
-        return xy * self.side - np.array([self.pad_x, self.pad_y], np.float32)
-
-
 def preprocess(image_rgb: np.ndarray, size: int) -> tuple[np.ndarray, Letterbox]:
     """Letterbox an RGB uint8 image [H,W,3] into the model input [1,size,size,3] float32 in -1..1.
 
@@ -181,13 +165,13 @@ def preprocess(image_rgb: np.ndarray, size: int) -> tuple[np.ndarray, Letterbox]
     if h < 1 or w < 1:
         raise InputError("face detector got an empty image")
     side = float(max(h, w))
-    pad_x, pad_y = (side - w) / 2.0, (side - h) / 2.0
+    pad_x, pad_y = (side - w) / 2.0, (side - h) / 2.0  # source pixels
     s = size / side
     m = np.array([[s, 0.0, pad_x * s], [0.0, s, pad_y * s]], np.float64)
     warped = cv2.warpAffine(img, m, (size, size), flags=cv2.INTER_LINEAR,
                             borderMode=cv2.BORDER_CONSTANT, borderValue=(0, 0, 0))
     tensor = warped.astype(np.float32) * np.float32(2.0 / 255.0) - np.float32(1.0)
-    return tensor[None], Letterbox(side, pad_x, pad_y)
+    return tensor[None], Letterbox(s, pad_x * s, pad_y * s, w, h, size, size)
 
 
 def decode(raw_boxes: np.ndarray, raw_scores: np.ndarray, anchors: np.ndarray,
@@ -218,19 +202,6 @@ def decode(raw_boxes: np.ndarray, raw_scores: np.ndarray, anchors: np.ndarray,
     return boxes.astype(np.float32), keypoints.astype(np.float32), scores.astype(np.float32)
 
 
-def _iou_one(box: np.ndarray, boxes: np.ndarray) -> np.ndarray:
-    """IoU of one box [4] with boxes [M,4] (x1,y1,x2,y2); 0 where they do not intersect."""
-    ix1 = np.maximum(box[0], boxes[:, 0])
-    iy1 = np.maximum(box[1], boxes[:, 1])
-    ix2 = np.minimum(box[2], boxes[:, 2])
-    iy2 = np.minimum(box[3], boxes[:, 3])
-    inter = np.clip(ix2 - ix1, 0, None) * np.clip(iy2 - iy1, 0, None)
-    area = (box[2] - box[0]) * (box[3] - box[1])
-    areas = (boxes[:, 2] - boxes[:, 0]) * (boxes[:, 3] - boxes[:, 1])
-    union = area + areas - inter
-    return np.where((inter > 0) & (union > 0), inter / np.where(union > 0, union, 1), 0.0)
-
-
 def weighted_nms(boxes: np.ndarray, scores: np.ndarray, keypoints: np.ndarray,
                  iou_threshold: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Weighted non-maximum suppression as MediaPipe's WeightedNonMaxSuppression.
@@ -244,7 +215,7 @@ def weighted_nms(boxes: np.ndarray, scores: np.ndarray, keypoints: np.ndarray,
     out_b, out_s, out_k = [], [], []
     while order.size:
         best = order[0]
-        iou = _iou_one(boxes[best], boxes[order])
+        iou = iou_matrix(boxes[best], boxes[order])[0]
         member = iou > iou_threshold
         member[0] = True  # a box always overlaps itself (a zero-area box included)
         idx = order[member]
@@ -340,5 +311,6 @@ class FaceDetector:
         boxes, scores, keypoints = weighted_nms(boxes[keep], scores[keep], keypoints[keep], self.nms_iou)
         if not len(scores):
             return Faces.empty()
-        corners = letterbox.to_source(boxes.reshape(-1, 2, 2)).reshape(-1, 4)
-        return Faces(corners, scores, letterbox.to_source(keypoints))
+        side = np.float32(letterbox.in_w)  # normalised coordinates are fractions of the square input
+        corners = letterbox.to_source(boxes.reshape(-1, 2, 2) * side).reshape(-1, 4)
+        return Faces(corners, scores, letterbox.to_source(keypoints * side))

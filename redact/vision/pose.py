@@ -1,5 +1,7 @@
 """Multi-person pose estimation on the CPU: letterbox → onnxruntime → decode → NMS → source pixels.
 
+The letterbox record and NMS are the shared ones of redact.vision.boxes (re-exported here).
+
 The default model (YOLO11n-pose, see models_manifest/) outputs `output0` [1, 56, A]: for each
 anchor cx, cy, w, h, person score, then 17 × (x, y, confidence) in COCO-17 order, in input-image
 pixels. There is no NMS inside the graph, so it is done here.
@@ -13,6 +15,7 @@ import cv2
 import numpy as np
 
 from redact.errors import InputError
+from redact.vision.boxes import Letterbox, nms
 from redact.vision.models import DEFAULT_POSE_MODEL
 from redact.vision.records import Poses
 from redact.vision.skeleton import NUM_KEYPOINTS
@@ -50,19 +53,6 @@ class PoseSettings:
             raise InputError(f"NMS IoU must be in (0, 1], got {self.nms_iou}")
         if not 0.0 <= self.containment <= 1.0:
             raise InputError(f"containment must be in [0, 1], got {self.containment}")
-
-
-@dataclass(frozen=True)
-class Letterbox:
-    """How a source image was scaled and padded into the model input (to map results back)."""
-
-    scale: float
-    pad_x: float
-    pad_y: float
-    src_w: int
-    src_h: int
-    in_w: int
-    in_h: int
 
 
 def input_size_for(width: int, height: int, long_side: int) -> tuple[int, int]:
@@ -111,35 +101,6 @@ def letterbox(image: np.ndarray, in_w: int, in_h: int) -> tuple[np.ndarray, Lett
     for c in range(3):
         np.multiply(resized[:, :, c], unit, out=tensor[0, c, top:top + new_h, left:left + new_w], casting="unsafe")
     return tensor, Letterbox(r, left, top, w, h, in_w, in_h)
-
-
-def nms(boxes: np.ndarray, scores: np.ndarray, iou: float, containment: float = 0.0) -> np.ndarray:
-    """Greedy non-maximum suppression; returns kept indices, best score first.
-
-    With containment > 0, a box whose intersection with a kept box covers at least that fraction
-    of its own area is suppressed too.
-    """
-    order = np.argsort(-scores, kind="stable")
-    boxes = boxes.astype(np.float64)
-    areas = np.maximum(0, boxes[:, 2] - boxes[:, 0]) * np.maximum(0, boxes[:, 3] - boxes[:, 1])
-    keep = []
-    while order.size:
-        i = order[0]
-        keep.append(i)
-        rest = order[1:]
-        xx1 = np.maximum(boxes[i, 0], boxes[rest, 0])
-        yy1 = np.maximum(boxes[i, 1], boxes[rest, 1])
-        xx2 = np.minimum(boxes[i, 2], boxes[rest, 2])
-        yy2 = np.minimum(boxes[i, 3], boxes[rest, 3])
-        inter = np.maximum(0, xx2 - xx1) * np.maximum(0, yy2 - yy1)
-        union = areas[i] + areas[rest] - inter
-        ious = np.divide(inter, union, out=np.zeros_like(inter), where=union > 0)
-        drop = ious > iou
-        if containment > 0:
-            inside = np.divide(inter, areas[rest], out=np.ones_like(inter), where=areas[rest] > 0)
-            drop |= inside >= containment
-        order = rest[~drop]
-    return np.array(keep, dtype=np.int64)
 
 
 def decode(output: np.ndarray, lb: Letterbox, settings: PoseSettings) -> Poses:
