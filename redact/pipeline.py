@@ -14,15 +14,16 @@ import os
 import shutil
 import tempfile
 import time
-from collections import deque
-from collections.abc import Callable, Iterable
+from collections.abc import Callable
 from dataclasses import asdict, dataclass, field
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
 
 from redact import __version__
 from redact.errors import InputError, OutputError
+from redact.finishing import FrameFinisher, FrameSinks, FrameWork, LookBack, RunStats
 from redact.media.stages import WriteBehind, read_ahead
 from redact.provenance import package
 from redact.provenance.log import TransformLog, utc_now
@@ -36,14 +37,22 @@ from redact.provenance.predicate import (
     SourceRecord,
     ToolRecord,
 )
+from redact.provenance.signing import Signer
 from redact.ranges import frame_ranges
-from redact.redaction.quality import QualityMonitor, ReviewRange, ReviewRules, encode_quality_line, review_document
-from redact.redaction.render import RenderSettings, obscure_all, obscurer_for, render_frame
-from redact.skeletons import rows
+from redact.redaction.background import Background
+from redact.redaction.obscure import ObscureRecord
+from redact.redaction.quality import QualityMonitor, ReviewRange, ReviewRules, review_document
+from redact.redaction.render import Obscurer, RenderSettings, obscurer_for
 from redact.vision.pose import PoseEstimator, PoseSettings
 from redact.vision.records import Tracks
-from redact.vision.track import TrackerConfig
-from redact.vision.tracking import TrackIdSettings, TrackingPass
+from redact.vision.track import TrackerConfig, TrackSummary
+from redact.vision.tracking import FALLBACK_FPS, Estimator, TrackedFrame, TrackIdSettings, TrackingPass
+
+if TYPE_CHECKING:
+    from redact.media.video import VideoInfo
+    from redact.redaction.plan import Plan
+    from redact.skeletons.privacy import PrivacyOptions
+    from redact.vision.models import ModelEntry
 
 VIDEO_NAME = "redacted.mp4"
 #: Upper bound of frames inferred at once (common practice: beyond a few, ordering and memory cost more than they gain).
@@ -92,6 +101,10 @@ class ProcessSettings:
     def ids(self) -> TrackIdSettings:
         """The settings that decide track ids (a track sheet made with the same ones names the same people)."""
         return TrackIdSettings(self.pose, self.tracker, self.coast_seconds, self.detect_every)
+
+    def lookback_frames(self, fps: float) -> int:
+        """Frames held back for the look-back at frame rate fps (FALLBACK_FPS when unknown)."""
+        return int(round(self.lookback_seconds * (fps or FALLBACK_FPS)))
 
     @property
     def model_threads(self) -> int:
@@ -158,7 +171,7 @@ def tracker_config_for(settings: ProcessSettings, fps: float) -> TrackerConfig:
     return settings.ids.tracker_config(fps)
 
 
-def inference_workers(settings: ProcessSettings, estimator) -> int:
+def inference_workers(settings: ProcessSettings, estimator: object) -> int:
     """Frames to infer at once: settings.model_frames for an estimator that says it may be called
     from several threads at once (`concurrent`, as PoseEstimator), else 1 (test doubles that count
     their calls, for instance)."""
@@ -180,133 +193,7 @@ def _check_paths(source: Path, out_dir: Path, archive: bool) -> tuple[Path, Path
     return video, pkg
 
 
-class _Stats:
-    """Counts for the transform log: what was obscured where, and which frames failed."""
-
-    def __init__(self) -> None:
-        self.with_people: list[int] = []
-        self.person_frames = 0
-        self.predicted_frames = 0
-        self.faults: list[int] = []
-        self.fault_reasons: dict[str, int] = {}
-        self.lookback_frames: list[int] = []
-        self.new_tracks = 0
-
-    def people(self, index: int, tracks: Tracks) -> None:
-        if len(tracks):
-            self.with_people.append(index)
-            self.person_frames += len(tracks)
-            self.predicted_frames += int((~tracks.observed).sum())
-
-    def fault(self, index: int, reason: str) -> None:
-        self.faults.append(index)
-        self.fault_reasons[reason] = self.fault_reasons.get(reason, 0) + 1
-
-
-class _Lookback:
-    """Holds the last few rendered frames back from the encoder; a newly detected person is
-    obscured in them too, where they first appeared (box with the tracker's widest margin).
-
-    "New" means new to the tracker, not newly obscured: a person a plan keeps visible who starts
-    to be obscured when they overlap someone (kept_overlap) was shown on purpose before, so the
-    frames before are left as they are."""
-
-    def __init__(self, frames: int, obscurer, region_settings, margin: float):
-        self.pending: deque = deque()
-        self.frames = frames
-        self.obscurer = obscurer
-        self.region_settings = region_settings
-        self.margin = margin
-        self.seen: set[int] = set()
-
-    def push(self, index: int, pts: int, image: np.ndarray, tracks: Tracks | None, stats: _Stats,
-             frame_ids: Iterable[int]):
-        """Add one rendered frame; returns the frames now old enough to encode, oldest first.
-
-        tracks: the people obscured in this frame; frame_ids: every track id of the frame, including
-        people kept visible (they are not new when they later have to be obscured)."""
-        from redact.redaction.regions import person_region
-
-        new = [k for k, i in enumerate(tracks.ids.tolist()) if i not in self.seen] if tracks is not None else []
-        self.seen.update(int(i) for i in frame_ids)
-        if new:
-            stats.new_tracks += len(new)
-            for k in new:
-                region = person_region(tracks.boxes[k], tracks.keypoints[k], self.margin, image.shape,
-                                       self.region_settings)
-                if region.empty:
-                    continue
-                sub = region.crop_mask()
-                for item in self.pending:
-                    if not item[2].flags.writeable:
-                        item[2] = item[2].copy()
-                    self.obscurer.apply_into(item[2], region.rect, sub, region.size)
-                    stats.lookback_frames.append(item[0])
-        self.pending.append([index, pts, image])
-        out = []
-        while len(self.pending) > self.frames:
-            out.append(self.pending.popleft())
-        return out
-
-    def flush(self):
-        out = list(self.pending)
-        self.pending.clear()
-        return out
-
-
-class _FrameFinisher:
-    """Everything after tracking for one frame, in frame order: obscure (failing closed), look
-    back, hand to the encoder, write the skeleton row, the quality line and the frame digest."""
-
-    def __init__(self, settings, background, obscurer, lookback, monitor, stats, encode, skel, qual, frames_out,
-                 progress, expected: int):
-        self.settings, self.background, self.obscurer = settings, background, obscurer
-        self.lookback, self.monitor, self.stats, self.encode = lookback, monitor, stats, encode
-        self.skel, self.qual, self.frames_out = skel, qual, frames_out
-        self.progress, self.expected = progress, expected
-
-    def _render(self, frame, tracks: Tracks, decision) -> tuple[np.ndarray, Tracks, tuple[str, ...]]:
-        style = self.settings.render
-        every = self.settings.detect_every
-        if decision is None:
-            out = render_frame(frame.image, tracks, style, background=self.background, obscurer=self.obscurer,
-                               detect_every=every)
-            return out, tracks, ()
-        extra = ("kept_overlap",) if decision.overlap_ids else ()
-        if decision.whole_frame:
-            return obscure_all(frame.image), decision.obscure, extra
-        out = render_frame(frame.image, decision.obscure, style, background=self.background, obscurer=self.obscurer,
-                           detect_every=every)
-        if decision.mask is not None:
-            out = self.obscurer.apply(out, decision.mask)
-        return out, decision.obscure, extra
-
-    def finish(self, frame, tracks: Tracks | None, decision, error: str | None) -> None:
-        extra: tuple[str, ...] = ()
-        hidden = None
-        if tracks is not None:
-            try:
-                out, hidden, extra = self._render(frame, tracks, decision)
-                self.stats.people(frame.index, tracks)
-            except Exception as e:  # fail closed: whatever went wrong, this frame shows nobody
-                tracks, hidden, error = None, None, type(e).__name__
-        if tracks is None:
-            out = obscure_all(frame.image)
-            self.stats.fault(frame.index, error or "unknown")
-        status = rows.STATUS_OK if tracks is not None else rows.STATUS_FAULT
-        pts = frame.pts if frame.pts is not None else frame.index
-        frame_ids = tracks.ids.tolist() if tracks is not None else ()
-        for _, ready_pts, ready in self.lookback.push(frame.index, pts, out, hidden, self.stats, frame_ids):
-            self.encode(ready, ready_pts)
-        self.skel.write(rows.encode_row(frame.index, frame.pts, frame.t, tracks or Tracks.empty(), status))
-        self.qual.write(encode_quality_line(self.monitor.observe(frame.index, frame.t, frame.image, tracks,
-                                                                 fault=tracks is None, extra=extra)))
-        self.frames_out.write(frame.digest.hex().encode() + b"\n")
-        if self.progress is not None:
-            self.progress(frame.index + 1, self.expected)
-
-
-def _build_background(source: Path, estimator: PoseEstimator, settings: ProcessSettings):
+def _build_background(source: Path, estimator: Estimator, settings: ProcessSettings) -> Background:
     """The empty scene from a first pass: sampled frames, people masked out (see redact.redaction.background)."""
     from redact.media.video import VideoReader
     from redact.redaction.background import BackgroundBuilder
@@ -327,11 +214,13 @@ def _build_background(source: Path, estimator: PoseEstimator, settings: ProcessS
     return builder.build()
 
 
-def process_video(source: str | Path, out_dir: str | Path, signer, settings: ProcessSettings = ProcessSettings(),
-                  disclosure: dict | None = None, privacy=None,
+def process_video(source: str | Path, out_dir: str | Path, signer: Signer,
+                  settings: ProcessSettings = ProcessSettings(),
+                  disclosure: dict | None = None, privacy: PrivacyOptions | None = None,
                   progress: Callable[[int, int], None] | None = None,
-                  estimator: PoseEstimator | None = None, audit: bool = False,
-                  plan: str | Path | None = None) -> ProcessResult:
+                  estimator: Estimator | None = None, audit: bool = False,
+                  plan: str | Path | None = None,
+                  records: Callable[[ObscureRecord], None] | None = None) -> ProcessResult:
     """Redact every person in `source` and write the signed skeleton package; see the module doc.
 
     signer: a redact.provenance.signing.Signer. disclosure: optional recipient/organisation/purpose/date/
@@ -342,6 +231,9 @@ def process_video(source: str | Path, out_dir: str | Path, signer, settings: Pro
     redact.redaction.audit before signing, and record the result in the log and the statement.
     plan: a redaction plan file (docs/plan-format.md): people to leave visible, extra regions and
     frames to obscure; validated before any output, its hash and every entry applied are logged.
+    records: called with each frame's final obscure record (redact.redaction.obscure), in frame
+    order, from the thread that renders; with the source and the render settings it is all it
+    takes to render that frame again.
     """
     from redact.media.video import probe
     from redact.vision.models import get_model
@@ -359,9 +251,10 @@ def process_video(source: str | Path, out_dir: str | Path, signer, settings: Pro
         plan_obj.check_settings(settings.ids, entry.sha256)
     if estimator is None:
         estimator = PoseEstimator.default(settings.pose, settings.model_threads)  # hash check before output
-    tracker_cfg = tracker_config_for(settings, float(info.fps))
     background = _build_background(source, estimator, settings) if settings.render.style == "background" else None
-    obscurer = obscurer_for(settings.render, background)
+    run = _Run(source, info, settings, entry, estimator, signer, plan_obj, background,
+               obscurer_for(settings.render, background),
+               disclosure, privacy, audit, progress, records, started)
 
     try:
         out_dir.mkdir(parents=True, exist_ok=True)
@@ -369,108 +262,185 @@ def process_video(source: str | Path, out_dir: str | Path, signer, settings: Pro
     except OSError as e:
         raise OutputError(f"cannot write to {out_dir}: {e.strerror or e}") from None
     try:
-        return _run(source, info, out_dir, staging, video_final, pkg_final, signer, settings, tracker_cfg,
-                    estimator, entry, obscurer, background, disclosure, privacy, progress, started, audit, plan_obj)
+        return _run(run, _Outputs(out_dir, staging, video_final, pkg_final))
     finally:
         shutil.rmtree(staging, ignore_errors=True)
 
 
-def _run(source, info, out_dir, staging, video_final, pkg_final, signer, settings, tracker_cfg, estimator,
-         entry, obscurer, background, disclosure, privacy, progress, started, audit, plan):
-    """The streaming pass and the packaging, inside the staging folder (see process_video)."""
-    from redact.media.video import VideoReader, VideoWriter, copy_audio
+@dataclass(frozen=True)
+class _Run:
+    """Everything one run uses, prepared and checked before any output exists (see process_video)."""
 
-    pkg_dir = staging / PACKAGE_NAME
-    pkg_dir.mkdir()
-    video_tmp = staging / VIDEO_NAME
-    log = TransformLog(pkg_dir / package.LOG)
-    log.append("probe", **{k: v for k, v in info.as_dict().items() if k != "path"}, name=source.name)
+    source: Path
+    info: VideoInfo
+    settings: ProcessSettings
+    model: ModelEntry
+    estimator: Estimator
+    signer: Signer
+    plan: Plan | None
+    background: Background | None
+    obscurer: Obscurer
+    disclosure: dict | None
+    privacy: PrivacyOptions | None
+    audit: bool
+    progress: Callable[[int, int], None] | None
+    records: Callable[[ObscureRecord], None] | None
+    started: float
+
+    @property
+    def fps(self) -> float:
+        return float(self.info.fps)
+
+
+@dataclass(frozen=True)
+class _Outputs:
+    """Where a run writes: the staging folder inside out_dir, and the final video and package paths."""
+
+    out_dir: Path
+    staging: Path
+    video: Path
+    package: Path
+
+    @property
+    def package_dir(self) -> Path:
+        return self.staging / PACKAGE_NAME
+
+    @property
+    def video_tmp(self) -> Path:
+        return self.staging / VIDEO_NAME
+
+
+@dataclass(frozen=True)
+class _Streamed:
+    """What the streaming pass saw: frames decoded and written, the source's digest and size as
+    read, whether decoding stopped early, per-frame counts, the review ranges and the tracks."""
+
+    frames: int
+    frames_written: int
+    sha256: str
+    bytes: int
+    stopped_early: str | None
+    corrupt_frames: int
+    stats: RunStats
+    monitor: QualityMonitor
+    summaries: list[TrackSummary]
+
+
+def _log_start(run: _Run, log: TransformLog) -> None:
+    s, info, entry = run.settings, run.info, run.model
+    log.append("probe", **{k: v for k, v in info.as_dict().items() if k != "path"}, name=run.source.name)
     log.append("model", id=entry.id, sha256=entry.sha256, licence=entry.licence, runtime="onnxruntime-cpu",
-               threads=settings.model_threads, frames_at_once=settings.model_frames)
-    log.append("detection", **asdict(settings.pose), detect_every=settings.detect_every)
-    log.append("tracking", **asdict(tracker_cfg), coast_seconds=settings.coast_seconds)
-    if background is not None:
-        log.append("background", samples=settings.background_samples,
-                   valid_fraction=round(float(background.valid.mean()), 4))
+               threads=s.model_threads, frames_at_once=s.model_frames)
+    log.append("detection", **asdict(s.pose), detect_every=s.detect_every)
+    log.append("tracking", **asdict(s.ids.tracker_config(run.fps)), coast_seconds=s.coast_seconds)
+    if run.background is not None:
+        log.append("background", samples=s.background_samples,
+                   valid_fraction=round(float(run.background.valid.mean()), 4))
 
-    tracking = TrackingPass(estimator, settings.ids, float(info.fps), inference_workers(settings, estimator))
-    monitor = QualityMonitor(settings.review)
-    stats = _Stats()
-    lookback = _Lookback(int(round(settings.lookback_seconds * float(info.fps or 25))), obscurer,
-                         settings.render.regions, tracker_cfg.max_margin)
+
+def _stream(run: _Run, out: _Outputs) -> _Streamed:
+    """decode → pose → track → (plan) → obscure record → look-back → render → encode, plus the
+    rows, quality lines and frame digests (redact.finishing)."""
+    from redact.media.video import VideoReader, VideoWriter
+
+    s, info, pkg_dir = run.settings, run.info, out.package_dir
+    tracking = TrackingPass(run.estimator, s.ids, run.fps, inference_workers(s, run.estimator))
+    monitor = QualityMonitor(s.review)
+    stats = RunStats()
+    lookback = LookBack(s.lookback_frames(run.fps), s.render.regions, tracking.config.max_margin, stats)
     n_frames = 0
-    with VideoReader(source, threads=0) as reader, \
-            VideoWriter(video_tmp, info.width, info.height, info.time_base, info.fps, crf=settings.crf) as writer, \
+    with VideoReader(run.source, threads=0) as reader, \
+            VideoWriter(out.video_tmp, info.width, info.height, info.time_base, info.fps, crf=s.crf) as writer, \
             WriteBehind(writer.write, depth=4) as encoder, \
             open(pkg_dir / package.SKELETONS, "wb") as skel, \
             open(pkg_dir / package.QUALITY, "wb") as qual, \
             open(pkg_dir / package.FRAMES, "wb") as frames_out:
-        finisher = _FrameFinisher(settings, background, obscurer, lookback, monitor, stats, encoder.submit,
-                                  skel, qual, frames_out, progress, info.frames)
+        sinks = FrameSinks(encoder.submit, skel, qual, frames_out, info.frames, run.progress, run.records)
+        finisher = FrameFinisher(s.render, s.detect_every, run.obscurer, lookback, monitor, stats, sinks)
         # Detection may run on several frames at once; tracking stays here, in frame order.
-        # Rendering, the look-back, rows and quality run in one thread behind, overlapping the
-        # next inferences.
+        # Obscure records, the look-back, rendering, rows and quality run in one thread behind,
+        # overlapping the next inferences.
         with WriteBehind(finisher.finish, depth=2) as finishing:
             for item in tracking.run(read_ahead(reader.frames(), depth=4)):
-                frame, tracks, decision, error = item.frame, item.tracks, None, item.error
-                if tracks is not None and plan is not None:
-                    try:
-                        decision = plan.decide(frame.index, frame.t, tracks, frame.image.shape)
-                    except Exception as e:  # fail closed: the finisher obscures the whole frame
-                        tracks, error = None, type(e).__name__
-                finishing.submit(frame, tracks, decision, error)
+                finishing.submit(_decide(run.plan, item))
                 n_frames += 1
-        for _, ready_pts, ready in lookback.flush():
-            encoder.submit(ready, ready_pts)
+        finisher.flush()
         encoder.close()
-    log.append("decode", frames=n_frames, sha256=reader.sha256, bytes=reader.bytes,
-               stopped_early=reader.stopped_early, corrupt_frames=reader.corrupt_frames)
-    log.append("redaction", style=settings.render.style, figures=settings.render.draws_figures,
-               regions=asdict(settings.render.regions), frames_with_people=frame_ranges(stats.with_people),
+    return _Streamed(n_frames, writer.frames_written, reader.sha256, reader.bytes, reader.stopped_early,
+                     reader.corrupt_frames, stats, monitor, tracking.summary())
+
+
+def _decide(plan: Plan | None, item: TrackedFrame) -> FrameWork:
+    """The plan's decision for one tracked frame; a decision that raises fails the frame (closed)."""
+    if item.tracks is None or plan is None:
+        return FrameWork(item.frame, item.tracks, None, item.error)
+    try:
+        return FrameWork(item.frame, item.tracks, plan.decide(item.frame.index, item.frame.t, item.tracks,
+                                                              item.frame.image.shape))
+    except Exception as e:  # fail closed: the finisher obscures the whole frame
+        return FrameWork(item.frame, None, None, type(e).__name__)
+
+
+def _run(run: _Run, out: _Outputs) -> ProcessResult:
+    """The streaming pass and the packaging, inside the staging folder (see process_video)."""
+    from redact.media.video import copy_audio
+
+    s, info, plan, privacy = run.settings, run.info, run.plan, run.privacy
+    pkg_dir, video_tmp = out.package_dir, out.video_tmp
+    pkg_dir.mkdir()
+    log = TransformLog(pkg_dir / package.LOG)
+    _log_start(run, log)
+    seen = _stream(run, out)
+    stats, monitor = seen.stats, seen.monitor
+    log.append("decode", frames=seen.frames, sha256=seen.sha256, bytes=seen.bytes,
+               stopped_early=seen.stopped_early, corrupt_frames=seen.corrupt_frames)
+    log.append("redaction", style=s.render.style, figures=s.render.draws_figures,
+               regions=asdict(s.render.regions), frames_with_people=frame_ranges(stats.with_people),
                person_frames=stats.person_frames, predicted_person_frames=stats.predicted_frames,
-               lookback_seconds=settings.lookback_seconds, new_people=stats.new_tracks,
+               lookback_seconds=s.lookback_seconds, new_people=stats.new_tracks,
                lookback_frames=frame_ranges(sorted(set(stats.lookback_frames))))
     if stats.faults:
         log.append("fault", frames=frame_ranges(stats.faults), count=len(stats.faults),
                    reasons=stats.fault_reasons, action="frame fully obscured")
     review = monitor.ranges()
-    (pkg_dir / package.REVIEW).write_bytes(review_document(review, settings.review, n_frames))
-    log.append("review", rules=asdict(settings.review), ranges=len(review), flagged_frames=monitor.flagged)
+    (pkg_dir / package.REVIEW).write_bytes(review_document(review, s.review, seen.frames))
+    log.append("review", rules=asdict(s.review), ranges=len(review), flagged_frames=monitor.flagged)
 
-    summaries = tracking.summary()
+    summaries = seen.summaries
     if plan is not None:  # before anything is renamed into place: a bad track id leaves no output
-        plan.check_end([s.id for s in summaries], reader.sha256)
+        plan.check_end([t.id for t in summaries], seen.sha256)
         log.append("plan", **plan.record(), applied=plan.applied())
     (pkg_dir / package.TRACKS).write_bytes(_tracks_json(summaries))
     if privacy is not None:
         _apply_privacy(pkg_dir, privacy, info, log)
 
-    if settings.include_audio and info.has_audio:
-        with_audio = staging / ("audio-" + VIDEO_NAME)
-        copy_audio(video_tmp, source, with_audio)
+    if s.include_audio and info.has_audio:
+        with_audio = out.staging / ("audio-" + VIDEO_NAME)
+        copy_audio(video_tmp, run.source, with_audio)
         os.replace(with_audio, video_tmp)
-    log.append("encode", codec="h264", encoder="libx264", crf=settings.crf, frames=writer.frames_written,
-               audio=("included" if (settings.include_audio and info.has_audio)
+    log.append("encode", codec="h264", encoder="libx264", crf=s.crf, frames=seen.frames_written,
+               audio=("included" if (s.include_audio and info.has_audio)
                       else ("dropped" if info.has_audio else "none")),
                container_metadata="not copied", source_metadata_keys=list(info.metadata_keys))
     audit_result = None
-    if audit:
+    if run.audit:
         from redact.redaction.audit import AuditSettings, audit_summary, audit_video
 
-        audit_result = audit_summary(audit_video(video_tmp, source, AuditSettings(threads=settings.threads)))
+        audit_result = audit_summary(audit_video(video_tmp, run.source, AuditSettings(threads=s.threads)))
         log.append("audit", **audit_result)
-    if disclosure:
-        log.disclosure(**disclosure)
+    if run.disclosure:
+        log.disclosure(**run.disclosure)
 
+    entry = run.model
     predicate = Predicate(
-        source=SourceRecord(name=source.name, sha256=reader.sha256, bytes=reader.bytes,
+        source=SourceRecord(name=run.source.name, sha256=seen.sha256, bytes=seen.bytes,
                             duration=round(info.duration, 6), fps=f"{info.fps.numerator}/{info.fps.denominator}",
-                            frames=n_frames, width=info.width, height=info.height,
-                            stopped_early=reader.stopped_early),
+                            frames=seen.frames, width=info.width, height=info.height,
+                            stopped_early=seen.stopped_early),
         model=ModelRecord(entry.id, entry.sha256, entry.licence),
-        parameters=settings.record(),
+        parameters=s.record(),
         privacy=privacy.to_record() if privacy is not None else {"options": "none"},
-        disclosure=Disclosure.of(disclosure),
+        disclosure=Disclosure.of(run.disclosure),
         review=ReviewCounts(len(review), monitor.flagged),
         faults=FaultCounts(len(stats.faults)),
         plan=None if plan is None else plan.record(),
@@ -478,23 +448,23 @@ def _run(source, info, out_dir, staging, video_final, pkg_final, signer, setting
         tool=ToolRecord("redact", __version__),
         created=utc_now(),
     )
-    signed = staging / "signed"
-    package.write_package(pkg_dir, signed, predicate, signer, video=video_tmp, archive=settings.archive)
-    os.rename(video_tmp, video_final)
-    os.rename(signed, pkg_final)  # last: a package in place means the run completed
-    return ProcessResult(out_dir, video_final, pkg_final, n_frames, len(summaries), tuple(stats.faults),
-                         tuple(review), time.perf_counter() - started, reader.stopped_early,
-                         signer.key_id, reader.sha256, audit_result)
+    signed = out.staging / "signed"
+    package.write_package(pkg_dir, signed, predicate, run.signer, video=video_tmp, archive=s.archive)
+    os.rename(video_tmp, out.video)
+    os.rename(signed, out.package)  # last: a package in place means the run completed
+    return ProcessResult(out.out_dir, out.video, out.package, seen.frames, len(summaries), tuple(stats.faults),
+                         tuple(review), time.perf_counter() - run.started, seen.stopped_early,
+                         run.signer.key_id, seen.sha256, audit_result)
 
 
-def _tracks_json(summaries) -> bytes:
+def _tracks_json(summaries: list[TrackSummary]) -> bytes:
     """tracks.json: one object per track id, deterministic bytes."""
     doc = {"tracks": [{k: (round(v, 6) if isinstance(v, float) else v) for k, v in asdict(s).items()}
                       for s in summaries]}
     return (json.dumps(doc, sort_keys=True, separators=(",", ":"), allow_nan=False) + "\n").encode()
 
 
-def _apply_privacy(pkg_dir: Path, privacy, info, log: TransformLog) -> None:
+def _apply_privacy(pkg_dir: Path, privacy: PrivacyOptions, info: VideoInfo, log: TransformLog) -> None:
     """Rewrite skeletons.jsonl and tracks.json through the de-identification options (redact.skeletons.privacy)."""
     from redact.skeletons.derive import rewrite_skeleton_files
 

@@ -185,6 +185,8 @@ class FrameDecision:
     the threshold); kept_ids: kept tracks left visible; overlap_ids: kept tracks obscured in this
     frame because they overlap someone (flag the frame for review); mask: bool [H, W] union of
     the plan's regions and boxes active on this frame, or None; whole_frame: obscure everything.
+    area_entries / whole_entries: (field path, label) of each entry that made the mask / the
+    whole frame, in plan order (the reasons of redact.redaction.obscure's plan regions).
     """
 
     obscure: Tracks
@@ -192,6 +194,8 @@ class FrameDecision:
     overlap_ids: tuple[int, ...]
     mask: np.ndarray | None
     whole_frame: bool
+    area_entries: tuple[tuple[str, str | None], ...] = ()
+    whole_entries: tuple[tuple[str, str | None], ...] = ()
 
 
 class _Hits:
@@ -270,17 +274,21 @@ class Plan:
             raise RedactError(f"plan: checked for {self.width}×{self.height} frames, got {w}×{h}")
         frame = int(frame)
         whole = False
+        whole_entries: list[tuple[str, str | None]] = []
         for e in self.whole:
             if e.when.contains(frame, t):
                 whole = True
+                whole_entries.append((e.path, e.label))
                 self._hits.add(e.path, frame)
         mask = None
+        area_entries: list[tuple[str, str | None]] = []
         for e in self.areas:
             if e.when is None or e.when.contains(frame, t):
                 if mask is None:
                     mask = np.zeros((h, w), bool)
                 x0, y0, x1, y1 = e.rect
                 mask[y0:y1, x0:x1] |= e.crop
+                area_entries.append((e.path, e.label))
                 self._hits.add(e.path, frame)
         for m in self.moving:
             box = m.box_at(frame)
@@ -291,6 +299,7 @@ class Plan:
                 if mask is None:
                     mask = np.zeros((h, w), bool)
                 mask[y0:y1, x0:x1] = True
+                area_entries.append((m.path, m.label))
                 self._hits.add(m.path, frame)
 
         ids = tracks.ids
@@ -308,7 +317,7 @@ class Plan:
             self._hits.add(f"keep_visible:{tid}:overlap", frame)
         obscure = tracks if not visible.any() else tracks.select(~visible)
         return FrameDecision(obscure, tuple(int(i) for i in ids[visible]), tuple(int(i) for i in ids[over]),
-                             mask, whole)
+                             mask, whole, tuple(area_entries), tuple(whole_entries))
 
     # -- records -------------------------------------------------------------------------------
 

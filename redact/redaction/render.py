@@ -23,13 +23,12 @@ import numpy as np
 
 from redact.errors import RedactError
 from redact.redaction.background import Background
-from redact.redaction.regions import RegionSettings, track_regions
+from redact.redaction.obscure import FILL_GREY, ObscureRecord, ObscureRegion, WholeFrame, add_people, figures_for
+from redact.redaction.regions import Region, RegionSettings
 from redact.vision.records import Tracks
 from redact.vision.skeleton import LINKS
 
 STYLES: tuple[str, ...] = ("figure", "blur", "pixelate", "fill", "background")
-#: Neutral mid grey for solid fills; the same for everyone.
-FILL_GREY = 128
 #: One neutral light grey for every stick figure: no colour coding of people.
 FIGURE_GREY = 235
 
@@ -281,28 +280,59 @@ def obscure_all(image: np.ndarray) -> np.ndarray:
     return np.full(img.shape, FILL_GREY, np.uint8)
 
 
+def _obscure_region(out: np.ndarray, region: ObscureRegion, ob: Obscurer) -> None:
+    """Obscure one region of the record in place in out (RGB uint8, writable)."""
+    g = region.geometry
+    if isinstance(g, WholeFrame):
+        out[...] = FILL_GREY
+        return
+    if g.empty:
+        return
+    if type(ob) is Fill and isinstance(g, Region):  # rasterised straight into the frame (same pixels as its mask)
+        g.paint(out, (ob.grey,) * 3)
+    else:
+        ob.apply_into(out, g.rect, g.crop_mask(), g.size)
+
+
+def render_record(image: np.ndarray, record: ObscureRecord, style: RenderSettings,
+                  background: Background | None = None, obscurer: Obscurer | None = None) -> np.ndarray:
+    """A new image: the record's regions under the figures obscured in order, its figures drawn
+    (style.figure_threshold, style.line_width), then the regions over the figures in order.
+
+    A pure function of its arguments: the same source image, record and style (with the same
+    empty scene for style "background") give the same bytes (redact.redaction.obscure).
+    image [H,W,3] uint8 RGB, never written into; pass `obscurer` to reuse one across frames (a
+    BackgroundFill caches its resized scene). Raises RedactError on unusable input (the caller
+    then obscures the whole frame: fail closed).
+    """
+    img = _check_image(image)
+    if img.shape[:2] != (record.height, record.width):
+        raise RedactError(f"render: the record is for {record.width}×{record.height} frames, "
+                          f"got {img.shape[1]}×{img.shape[0]}")
+    ob = obscurer if obscurer is not None else obscurer_for(style, background)
+    out = np.ascontiguousarray(img).copy()
+    for region in record.under:
+        _obscure_region(out, region, ob)
+    if len(record.figures):
+        StickFigure(style.figure_threshold, style.line_width).draw_into(out, record.figures)
+    for region in record.over:
+        _obscure_region(out, region, ob)
+    return out
+
+
 def render_frame(image: np.ndarray, tracks: Tracks, style: RenderSettings,
                  background: Background | None = None, obscurer: Obscurer | None = None,
                  detect_every: int = 1) -> np.ndarray:
     """A new image: every tracked person's region obscured, then figures drawn when asked.
 
-    image [H,W,3] uint8 RGB (never written into). Pass `obscurer` to reuse one across frames
-    (e.g. a BackgroundFill that caches its resized scene); otherwise it is made from `style`.
+    The record of redact.redaction.obscure for these tracks alone (add_people, figures_for),
+    rendered by render_record. image [H,W,3] uint8 RGB (never written into).
     detect_every: the detection stride, so that style.figure_hold counts missed detections
     rather than frames. Raises RedactError on unusable input; the caller then uses obscure_all
     (fail closed).
     """
     img = _check_image(image)
-    ob = obscurer if obscurer is not None else obscurer_for(style, background)
-    out = np.ascontiguousarray(img).copy()
-    for region in track_regions(tracks, img.shape, style.regions):
-        if region.empty:
-            continue
-        if type(ob) is Fill:  # a solid fill rasterises straight into the frame (same pixels as its mask)
-            region.paint(out, (ob.grey,) * 3)
-        else:
-            ob.apply_into(out, region.rect, region.crop_mask(), region.size)
-    if style.draws_figures and len(tracks):
-        held = tracks.misses < max(1, int(detect_every)) * (style.figure_hold + 1)
-        StickFigure(style.figure_threshold, style.line_width).draw_into(out, tracks.keypoints[held])
-    return out
+    record = ObscureRecord(0, img.shape[1], img.shape[0])
+    record = add_people(record, tracks, style.regions)
+    record = record.with_figures(figures_for(tracks, style.draws_figures, style.figure_hold, detect_every))
+    return render_record(img, record, style, background, obscurer)
