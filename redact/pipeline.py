@@ -132,7 +132,8 @@ class ProcessSettings:
         return max(1, min(default_threads(), MAX_MODEL_FRAMES))
 
     def record(self) -> dict:
-        """The settings as plain JSON values (for the log and the predicate).
+        """The settings as given, as plain JSON values (what a batch index compares between runs;
+        a package records `effective` instead).
 
         threads is recorded as the count actually used: onnxruntime's sums run in a different
         order with a different thread count, which can move a keypoint by one in the last decimal,
@@ -141,6 +142,21 @@ class ProcessSettings:
         d = asdict(self)
         d["threads"] = self.model_threads
         d["model_frames"] = self.model_frames
+        return d
+
+    def effective(self, fps: float) -> dict:
+        """The settings as a run of a source at frame rate fps uses them, as plain JSON values.
+
+        Computed once per run: the signed predicate's parameters are this, and the log's entries
+        take their values from it. Differences from `record`: tracker.max_coast_frames is the coast
+        time in frames at this rate (the tracker's own default is not used); render.figure says
+        whether figures are drawn (always for style "figure"); lookback_window_frames is the
+        look-back in frames.
+        """
+        d = self.record()
+        d["tracker"] = asdict(self.ids.tracker_config(fps))
+        d["render"]["figure"] = self.render.draws_figures
+        d["lookback_window_frames"] = self.lookback_frames(fps)
         return d
 
 
@@ -326,15 +342,16 @@ class _Streamed:
     summaries: list[TrackSummary]
 
 
-def _log_start(run: _Run, log: TransformLog) -> None:
-    s, info, entry = run.settings, run.info, run.model
+def _log_start(run: _Run, params: dict, log: TransformLog) -> None:
+    """The log's first entries; every setting in them comes from params (ProcessSettings.effective)."""
+    info, entry = run.info, run.model
     log.append("probe", **{k: v for k, v in info.as_dict().items() if k != "path"}, name=run.source.name)
     log.append("model", id=entry.id, sha256=entry.sha256, licence=entry.licence, runtime="onnxruntime-cpu",
-               threads=s.model_threads, frames_at_once=s.model_frames)
-    log.append("detection", **asdict(s.pose), detect_every=s.detect_every)
-    log.append("tracking", **asdict(s.ids.tracker_config(run.fps)), coast_seconds=s.coast_seconds)
+               threads=params["threads"], frames_at_once=params["model_frames"])
+    log.append("detection", **params["pose"], detect_every=params["detect_every"])
+    log.append("tracking", **params["tracker"], coast_seconds=params["coast_seconds"])
     if run.background is not None:
-        log.append("background", samples=s.background_samples,
+        log.append("background", samples=params["background_samples"],
                    valid_fraction=round(float(run.background.valid.mean()), 4))
 
 
@@ -388,23 +405,25 @@ def _run(run: _Run, out: _Outputs) -> ProcessResult:
     s, info, plan, privacy = run.settings, run.info, run.plan, run.privacy
     pkg_dir, video_tmp = out.package_dir, out.video_tmp
     pkg_dir.mkdir()
+    params = s.effective(run.fps)  # the one record of the settings used: log and predicate
     log = TransformLog(pkg_dir / package.LOG)
-    _log_start(run, log)
+    _log_start(run, params, log)
     seen = _stream(run, out)
     stats, monitor = seen.stats, seen.monitor
     log.append("decode", frames=seen.frames, sha256=seen.sha256, bytes=seen.bytes,
                stopped_early=seen.stopped_early, corrupt_frames=seen.corrupt_frames)
-    log.append("redaction", style=s.render.style, figures=s.render.draws_figures,
-               regions=asdict(s.render.regions), frames_with_people=frame_ranges(stats.with_people),
+    log.append("redaction", style=params["render"]["style"], figures=params["render"]["figure"],
+               regions=params["render"]["regions"], frames_with_people=frame_ranges(stats.with_people),
                person_frames=stats.person_frames, predicted_person_frames=stats.predicted_frames,
-               lookback_seconds=s.lookback_seconds, new_people=stats.new_tracks,
-               lookback_frames=frame_ranges(sorted(set(stats.lookback_frames))))
+               frames_with_figures=stats.figure_frames, regions_by_reason=dict(sorted(stats.reasons.items())),
+               lookback_seconds=params["lookback_seconds"], lookback_window_frames=params["lookback_window_frames"],
+               new_people=stats.new_tracks, lookback_frames=frame_ranges(sorted(set(stats.lookback_frames))))
     if stats.faults:
         log.append("fault", frames=frame_ranges(stats.faults), count=len(stats.faults),
                    reasons=stats.fault_reasons, action="frame fully obscured")
     review = monitor.ranges()
     (pkg_dir / package.REVIEW).write_bytes(review_document(review, s.review, seen.frames))
-    log.append("review", rules=asdict(s.review), ranges=len(review), flagged_frames=monitor.flagged)
+    log.append("review", rules=params["review"], ranges=len(review), flagged_frames=monitor.flagged)
 
     summaries = seen.summaries
     if plan is not None:  # before anything is renamed into place: a bad track id leaves no output
@@ -418,7 +437,7 @@ def _run(run: _Run, out: _Outputs) -> ProcessResult:
         with_audio = out.staging / ("audio-" + VIDEO_NAME)
         copy_audio(video_tmp, run.source, with_audio)
         os.replace(with_audio, video_tmp)
-    log.append("encode", codec="h264", encoder="libx264", crf=s.crf, frames=seen.frames_written,
+    log.append("encode", codec="h264", encoder="libx264", crf=params["crf"], frames=seen.frames_written,
                audio=("included" if (s.include_audio and info.has_audio)
                       else ("dropped" if info.has_audio else "none")),
                container_metadata="not copied", source_metadata_keys=list(info.metadata_keys))
@@ -438,7 +457,7 @@ def _run(run: _Run, out: _Outputs) -> ProcessResult:
                             frames=seen.frames, width=info.width, height=info.height,
                             stopped_early=seen.stopped_early),
         model=ModelRecord(entry.id, entry.sha256, entry.licence),
-        parameters=s.record(),
+        parameters=params,
         privacy=privacy.to_record() if privacy is not None else {"options": "none"},
         disclosure=Disclosure.of(run.disclosure),
         review=ReviewCounts(len(review), monitor.flagged),
