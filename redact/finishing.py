@@ -27,6 +27,7 @@ from typing import TYPE_CHECKING, BinaryIO
 
 import numpy as np
 
+from redact.provenance import merkle
 from redact.redaction.obscure import ObscureRecord, ObscureRegion, Reason, add_people, add_plan, figures_for
 from redact.redaction.quality import QualityMonitor, encode_quality_line
 from redact.redaction.regions import RegionSettings, person_region
@@ -236,7 +237,7 @@ class FrameFinisher:
         s.skeletons.write(rows.encode_row(frame.index, frame.pts, frame.t, tracks or Tracks.empty(), status))
         s.quality.write(encode_quality_line(self.monitor.observe(frame.index, frame.t, frame.image, tracks,
                                                                  fault=tracks is None, extra=flags)))
-        s.frames.write(frame.digest.hex().encode() + b"\n")
+        s.frames.write(merkle.frame_digest_line(frame.digest))
         if s.records is not None:
             s.records(record)
         if s.progress is not None:

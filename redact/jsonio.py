@@ -47,6 +47,42 @@ def _float(text: str) -> float:
     return x
 
 
+class FixedNumber(float):
+    """A number read with `loads(..., fixed_numbers=True)`: a float that remembers how many decimals
+    its text had (-1 when written with an exponent), so fixed-decimal files re-encode exactly."""
+
+    decimals: int
+
+
+def _fixed_float(text: str) -> FixedNumber:
+    x = FixedNumber(_float(text))
+    mantissa = text.lower().partition("e")
+    x.decimals = -1 if mantissa[1] else len(mantissa[0].partition(".")[2])
+    return x
+
+
+def decimals_of(value: Any) -> int:
+    """Decimals of a number read with fixed_numbers=True: 0 for an integer, -1 when unknown."""
+    if isinstance(value, bool):
+        return -1
+    if isinstance(value, int):
+        return 0
+    return getattr(value, "decimals", -1)
+
+
+def fixed(x: float, decimals: int) -> str:
+    """A number as fixed-decimal JSON text: the one writer of fixed decimals in package files.
+
+    NaN and infinities are refused (RFC 7493 §2.2); a value that rounds to zero is written "0.00",
+    never "-0.00" (one rule for negative zero everywhere), so reruns give the same bytes.
+    """
+    x = float(x)
+    if not math.isfinite(x):
+        raise ValueError("a non-finite number cannot be written (RFC 7493)")
+    s = f"{x:.{decimals}f}"
+    return s[1:] if s.startswith("-") and float(s) == 0.0 else s
+
+
 def _int(text: str) -> int:
     if len(text) > 20:
         raise _Strict("integer out of the I-JSON range")
@@ -74,8 +110,10 @@ def _check_tree(obj: Any, depth: int = 0) -> None:
             _check_tree(v, depth + 1)
 
 
-def loads(data: bytes, what: str, limit: int = DEFAULT_LIMIT) -> Any:
-    """Parse one JSON document from bytes under RFC 7493 rules; raises PackageError naming `what`."""
+def loads(data: bytes, what: str, limit: int = DEFAULT_LIMIT, fixed_numbers: bool = False) -> Any:
+    """Parse one JSON document from bytes under RFC 7493 rules; raises PackageError naming `what`.
+
+    fixed_numbers: numbers with a fraction come back as FixedNumber (see decimals_of)."""
     if not isinstance(data, (bytes, bytearray)):
         raise TypeError("loads takes bytes")
     if len(data) > limit:
@@ -88,7 +126,7 @@ def loads(data: bytes, what: str, limit: int = DEFAULT_LIMIT) -> Any:
         raise PackageError(f"{what}: not valid UTF-8 ({e.reason} at byte {e.start})") from None
     try:
         obj = json.loads(text, object_pairs_hook=_pairs, parse_constant=_constant,
-                         parse_float=_float, parse_int=_int)
+                         parse_float=_fixed_float if fixed_numbers else _float, parse_int=_int)
         _check_tree(obj)
     except _Strict as e:
         raise PackageError(f"{what}: {e} (RFC 7493)") from None
@@ -101,9 +139,9 @@ def loads(data: bytes, what: str, limit: int = DEFAULT_LIMIT) -> Any:
     return obj
 
 
-def loads_object(data: bytes, what: str, limit: int = DEFAULT_LIMIT) -> dict:
+def loads_object(data: bytes, what: str, limit: int = DEFAULT_LIMIT, fixed_numbers: bool = False) -> dict:
     """Like loads, but the top level must be a JSON object."""
-    obj = loads(data, what, limit)
+    obj = loads(data, what, limit, fixed_numbers)
     if not isinstance(obj, dict):
         raise PackageError(f"{what}: expected a JSON object at the top level, got {type(obj).__name__}")
     return obj
@@ -132,3 +170,8 @@ def dumps(obj: Any) -> bytes:
     """Compact UTF-8 JSON with sorted keys and no NaN: the exact bytes we hash and sign."""
     return json.dumps(obj, sort_keys=True, separators=(",", ":"), ensure_ascii=False,
                       allow_nan=False).encode("utf-8")
+
+
+def dumps_indented(obj: Any) -> bytes:
+    """Like dumps but indented by two spaces, for the files people open in an editor (review.json)."""
+    return json.dumps(obj, sort_keys=True, indent=2, ensure_ascii=False, allow_nan=False).encode("utf-8")

@@ -9,7 +9,6 @@ that fails its hash check stops the run before any output exists.
 
 from __future__ import annotations
 
-import json
 import os
 import shutil
 import tempfile
@@ -24,6 +23,7 @@ import numpy as np
 from redact import __version__
 from redact.errors import InputError, OutputError
 from redact.finishing import FrameFinisher, FrameSinks, FrameWork, LookBack, RunStats
+from redact.formats.tracks_json import TrackRecord, encode_tracks
 from redact.media.stages import WriteBehind, read_ahead
 from redact.provenance import package
 from redact.provenance.log import TransformLog, utc_now
@@ -477,10 +477,9 @@ def _run(run: _Run, out: _Outputs) -> ProcessResult:
 
 
 def _tracks_json(summaries: list[TrackSummary]) -> bytes:
-    """tracks.json: one object per track id, deterministic bytes."""
-    doc = {"tracks": [{k: (round(v, 6) if isinstance(v, float) else v) for k, v in asdict(s).items()}
-                      for s in summaries]}
-    return (json.dumps(doc, sort_keys=True, separators=(",", ":"), allow_nan=False) + "\n").encode()
+    """tracks.json from the tracker's summaries (written by redact.formats.tracks_json)."""
+    return encode_tracks(TrackRecord(s.id, s.first_frame, s.last_frame, s.frames_observed, s.frames_predicted,
+                                     s.first_t, s.last_t) for s in summaries)
 
 
 def _apply_privacy(pkg_dir: Path, privacy: PrivacyOptions, info: VideoInfo, log: TransformLog) -> None:

@@ -25,6 +25,7 @@ import pytest
 from click.testing import CliRunner
 
 from redact.errors import InputError, OutputError, VerificationFailed
+from redact.formats.tracks_json import TrackRecord, encode_tracks
 from redact.pipeline import ProcessSettings, process_video
 from redact.provenance.signing import Signer, generate_key
 from redact.provenance.verify import verify_package
@@ -281,7 +282,9 @@ def test_rewrite_keeps_tracks_quality_and_review_consistent(tmp_path):
     (pkg / "skeletons.jsonl").write_bytes(b"".join(lines))
     (pkg / "quality.jsonl").write_bytes(b"".join(qual))
     (pkg / "review.json").write_bytes(review_document([ReviewRange(103, 106, 4.12, 4.24, ("dark",))], ReviewRules(), 10))
-    (pkg / "tracks.json").write_bytes(b'{"tracks":[{"id":2},{"id":5},{"id":7}]}\n')
+    (pkg / "tracks.json").write_bytes(encode_tracks([TrackRecord(2, 100, 109, 10, 0, 4.0, 4.36),
+                                                     TrackRecord(5, 100, 109, 10, 0, 4.0, 4.36),
+                                                     TrackRecord(7, 104, 109, 3, 3, 4.16, 4.36)]))
     opts = PrivacyOptions(new_ids=True, keep_every=3, relative_time=True, seed=3)
     s = dv.rewrite_skeleton_files(pkg, opts, (320, 240), 25.0)
     rows = _rows(pkg / "skeletons.jsonl")

@@ -158,8 +158,8 @@ def test_bad_inputs(package, tmp_path):
         export_package(pkg, "csv", tmp_path / "x.csv")
     with pytest.raises(InputError, match="not a package"):
         export_package(tmp_path / "nope", "npz", tmp_path / "y.npz")
-    (pkg / "skeletons.jsonl").write_bytes(b'{"frame":0,"pts":0,"t":0.0,"status":"ok","people":[]}\n'
-                                          b'{"frame":0,"pts":0,"t":0.0,"status":"ok","people":[]}\n')
+    (pkg / "skeletons.jsonl").write_bytes(b'{"frame":0,"pts":0,"t":0.000000,"status":"ok","people":[]}\n'
+                                          b'{"frame":0,"pts":0,"t":0.000000,"status":"ok","people":[]}\n')
     with pytest.raises(PackageError, match="line 2"):
         export_package(pkg, "npz", tmp_path / "z.npz")
 

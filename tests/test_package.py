@@ -18,6 +18,9 @@ import pytest
 
 from redact import jsonio
 from redact.errors import OutputError, PackageError
+from redact.formats.quality_jsonl import FrameQuality, encode_quality_line
+from redact.formats.review_json import ReviewFile, ReviewRange, encode_review
+from redact.formats.tracks_json import TrackRecord, encode_tracks
 from redact.provenance import merkle, package, signing
 from redact.provenance.log import TransformLog
 from redact.provenance.predicate import (
@@ -67,9 +70,13 @@ def build_package(root: Path, signer: signing.Signer, *, archive: bool = False, 
     staging.mkdir()
     digests = [hashlib.sha256(f"frame {i}".encode()).digest() for i in range(N_FRAMES)]
     (staging / package.SKELETONS).write_bytes(synthetic_rows())
-    (staging / package.TRACKS).write_bytes(jsonio.dumps({"tracks": [{"id": 1, "frames": [0, 5]}, {"id": 2, "frames": [0, 3]}]}))
-    (staging / package.QUALITY).write_bytes(b"".join(b'{"frame":%d,"luma":0.5}\n' % i for i in range(N_FRAMES)))
-    (staging / package.REVIEW).write_bytes(jsonio.dumps({"ranges": [{"frame_start": 4, "frame_end": 5, "reasons": ["track lost"]}]}))
+    (staging / package.TRACKS).write_bytes(encode_tracks([TrackRecord(1, 0, 5, 6, 0, 0.0, 0.2),
+                                                          TrackRecord(2, 0, 3, 4, 0, 0.0, 0.12)]))
+    (staging / package.QUALITY).write_bytes(b"".join(
+        encode_quality_line(FrameQuality(i, i / 25, 50.0, 10.0, 100.0, 2 if i < 4 else 1, 1, 0, 0.9, 0))
+        for i in range(N_FRAMES)))
+    (staging / package.REVIEW).write_bytes(encode_review(ReviewFile((ReviewRange(4, 5, 0.16, 0.2, ("track lost",)),),
+                                                                    {"merge_gap": 5}, N_FRAMES)))
     (staging / package.FRAMES).write_bytes(merkle.format_frame_digests(digests))
     log = TransformLog(staging / package.LOG, clock=FIXED_CLOCK)
     log.append("decode", frames=N_FRAMES)

@@ -60,6 +60,31 @@ def encode_entry(seq: int, prev: str, time: str, kind: str, fields: dict[str, An
     return line
 
 
+def _is_canonical(d: dict, line: bytes) -> bool:
+    """True when `line` is exactly what encode_entry writes for the parsed entry `d`."""
+    try:
+        fields = {k: v for k, v in d.items() if k not in HEADER_KEYS}
+        return encode_entry(d["seq"], d["prev"], d["time"], d["kind"], fields) == bytes(line)
+    except (TypeError, ValueError, KeyError):
+        return False
+
+
+def decode_entry(line: bytes, what: str = "log.jsonl line") -> dict:
+    """One log line parsed strictly (RFC 7493), with the four header keys first and in order, and
+    exactly the bytes encode_entry writes for it; PackageError otherwise. Does not check the chain."""
+    d = jsonio.loads_object(line, what, LINE_LIMIT)
+    if tuple(d)[:4] != HEADER_KEYS:
+        raise PackageError(f"{what}: must start with the keys {', '.join(HEADER_KEYS)} in that order")
+    if not _is_canonical(d, line):
+        raise PackageError(f"{what}: not in the exact format this tool writes")
+    return d
+
+
+def read_entries(stream: BinaryIO, what: str = "log.jsonl") -> list[dict]:
+    """Every entry of a log stream, each decoded strictly (decode_entry); the chain is check_chain's job."""
+    return [decode_entry(line, f"{what} line {n}") for n, line in jsonio.iter_lines(stream, what, LINE_LIMIT)]
+
+
 @dataclass(frozen=True)
 class ChainReport:
     """What the chain checker found: entry count, head, the last entry, and every problem."""
@@ -112,6 +137,8 @@ def check_chain(stream: BinaryIO, what: str = "log.jsonl") -> ChainReport:
                 add(f"{what} line {n}: kind is missing or not a lowercase word")
             else:
                 kinds.append(kind)
+                if tuple(d)[:4] == HEADER_KEYS and not _is_canonical(d, line):
+                    add(f"{what} line {n}: not in the exact format this tool writes")
             prev, last = digest, d
     except PackageError as e:
         add(str(e))

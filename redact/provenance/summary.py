@@ -10,30 +10,12 @@ from __future__ import annotations
 from collections.abc import Sequence
 from pathlib import Path
 
-from redact import jsonio
+from redact.formats import review_json, skeletons_jsonl
 from redact.provenance.contents import PackageContents, read_unverified
 from redact.provenance.package import ENVELOPE, REVIEW, SKELETONS
 from redact.provenance.predicate import thaw
 
-REVIEW_LIMIT = 64 * 1024 * 1024  # bytes; common practice
 CAUTION = "Skeleton data is pseudonymised, not anonymous."
-
-
-def _flagged_ranges(doc) -> list[dict]:
-    """Flagged ranges from review.json: a list, or an object with a "ranges" (or "flagged") list of
-    {"frame_start"|"start": frame, "frame_end"|"end": frame, "reasons": [str] | "reason": str}."""
-    items = doc.get("ranges", doc.get("flagged", [])) if isinstance(doc, dict) else doc
-    out = []
-    for r in items if isinstance(items, list) else []:
-        if not isinstance(r, dict):
-            continue
-        reason = r.get("reason")
-        if reason is None and isinstance(r.get("reasons"), list):
-            reason = ", ".join(str(x) for x in r["reasons"])
-        start = r.get("frame_start", r.get("start"))
-        end = r.get("frame_end", r.get("end"))
-        out.append({"start": start, "end": end, "reason": "" if reason is None else str(reason)})
-    return out
 
 
 def open_contents(path: Path, trusted_keys: Sequence | None) -> PackageContents:
@@ -49,18 +31,18 @@ def summarise(contents: PackageContents) -> dict:
     """The summary of an opened package (see the module docstring)."""
     pred = contents.predicate
     frames = people = faults = 0
-    ids: set = set()
+    ids: set[int] = set()
     flagged: list[dict] = []
     if contents.has(SKELETONS):
-        for n, line in contents.lines(SKELETONS):
-            row = jsonio.loads_object(line, f"{SKELETONS} line {n}")
+        for n, line in contents.lines(SKELETONS, skeletons_jsonl.LINE_LIMIT):
+            row = skeletons_jsonl.decode_row(line, f"{SKELETONS} line {n}")
             frames += 1
-            faults += row.get("status") == "fault"
-            persons = row.get("people") if isinstance(row.get("people"), list) else []
-            people += len(persons)
-            ids.update(p.get("id") for p in persons if isinstance(p, dict) and isinstance(p.get("id"), int))
+            faults += row.status == skeletons_jsonl.STATUS_FAULT
+            people += len(row.people)
+            ids.update(p.id for p in row.people)
     if contents.has(REVIEW):
-        flagged = _flagged_ranges(jsonio.loads(contents.read_bytes(REVIEW, REVIEW_LIMIT), REVIEW, REVIEW_LIMIT))
+        doc = review_json.decode_review(contents.read_bytes(REVIEW, review_json.LIMIT))
+        flagged = [{"start": r.frame_start, "end": r.frame_end, "reason": ", ".join(r.reasons)} for r in doc.ranges]
     key_id = getattr(contents, "key_id", None) if contents.verified else getattr(contents, "key_id_hint", None)
     return {
         "verified": contents.verified,

@@ -15,7 +15,6 @@ drop of the observed count below its recent maximum.
 
 from __future__ import annotations
 
-import json
 import math
 from collections import deque
 from dataclasses import asdict, dataclass
@@ -24,6 +23,13 @@ import cv2
 import numpy as np
 
 from redact.errors import RedactError
+
+# The file formats have one owner each (redact.formats); re-exported here for the stages' callers.
+from redact.formats.quality_jsonl import FrameQuality as FrameQuality
+from redact.formats.quality_jsonl import encode_quality_line as encode_quality_line
+from redact.formats.review_json import REVIEW_NOTE as REVIEW_NOTE
+from redact.formats.review_json import ReviewFile, encode_review
+from redact.formats.review_json import ReviewRange as ReviewRange
 from redact.vision.records import Tracks
 
 #: ITU-R BT.601 luma coefficients for R', G', B'.
@@ -73,36 +79,6 @@ class ReviewRules:
             v = getattr(self, name)
             if not (isinstance(v, int) and v >= 0):
                 raise RedactError(f"review rule {name} must be a whole number >= 0, got {v!r}")
-
-
-@dataclass(frozen=True)
-class FrameQuality:
-    """The measures of one frame. Image measures are None for a frame without a usable image;
-    mean_conf is None when nobody was observed. reasons: sorted names of the rules it broke."""
-
-    frame: int
-    t: float
-    luma_mean: float | None
-    luma_std: float | None
-    sharpness: float | None
-    people: int
-    observed: int
-    predicted: int
-    mean_conf: float | None
-    count_drop: int
-    fault: bool = False
-    reasons: tuple[str, ...] = ()
-
-
-@dataclass(frozen=True)
-class ReviewRange:
-    """Frames frame_start..frame_end (inclusive), times t_start..t_end, with the sorted reasons."""
-
-    frame_start: int
-    frame_end: int
-    t_start: float
-    t_end: float
-    reasons: tuple[str, ...]
 
 
 def luma(image: np.ndarray) -> np.ndarray:
@@ -233,45 +209,6 @@ class QualityMonitor:
         return out
 
 
-def _num(x: float | None, decimals: int) -> str:
-    """Fixed-decimal JSON number, or null; no NaN/infinity (RFC 7493), no negative zero."""
-    if x is None:
-        return "null"
-    x = float(x)
-    if not math.isfinite(x):
-        raise RedactError("quality: a non-finite measure cannot be written")
-    s = f"{x:.{decimals}f}"
-    return s[1:] if s.startswith("-") and float(s) == 0.0 else s
-
-
-def encode_quality_line(q: FrameQuality) -> bytes:
-    """One line of quality.jsonl (UTF-8, newline-terminated), with fixed decimals so reruns are
-    byte-identical: time 6, luma and sharpness 2, confidence 3."""
-    reasons = ",".join(f'"{r}"' for r in q.reasons)
-    line = (f'{{"frame":{int(q.frame)},"t":{_num(q.t, 6)},"luma_mean":{_num(q.luma_mean, 2)},'
-            f'"luma_std":{_num(q.luma_std, 2)},"sharpness":{_num(q.sharpness, 2)},"people":{int(q.people)},'
-            f'"observed":{int(q.observed)},"predicted":{int(q.predicted)},"mean_conf":{_num(q.mean_conf, 3)},'
-            f'"count_drop":{int(q.count_drop)},"fault":{"true" if q.fault else "false"},"reasons":[{reasons}]}}\n')
-    return line.encode("utf-8")
-
-
-REVIEW_NOTE = ("These ranges are where automated redaction is most likely to have missed someone. "
-               "They are a guide, not a clearance: a person must review the whole redacted video "
-               "before any disclosure.")
-
-
 def review_document(ranges: list[ReviewRange], rules: ReviewRules, frames: int | None = None) -> bytes:
-    """review.json: the rules used and the ranges to review, as deterministic UTF-8 JSON bytes."""
-    doc = {
-        "kind": "review ranges",
-        "version": 1,
-        "note": REVIEW_NOTE,
-        "frames": frames,
-        "rules": asdict(rules),
-        "ranges": [
-            {"frame_start": r.frame_start, "frame_end": r.frame_end,
-             "t_start": round(r.t_start, 6), "t_end": round(r.t_end, 6), "reasons": list(r.reasons)}
-            for r in ranges
-        ],
-    }
-    return (json.dumps(doc, sort_keys=True, indent=2, ensure_ascii=False, allow_nan=False) + "\n").encode("utf-8")
+    """review.json: the rules used and the ranges to review (written by redact.formats.review_json)."""
+    return encode_review(ReviewFile(tuple(ranges), asdict(rules), frames))

@@ -14,7 +14,7 @@ from __future__ import annotations
 import html
 import math
 from collections.abc import Sequence
-from dataclasses import dataclass
+from dataclasses import asdict, dataclass
 from pathlib import Path
 from typing import Any
 
@@ -22,8 +22,9 @@ import numpy as np
 
 from redact import __version__, jsonio
 from redact.errors import InputError, PackageError, VerificationFailed
+from redact.formats import quality_jsonl, review_json
 from redact.provenance.contents import PackageContents, UnverifiedPackage, VerifiedPackage
-from redact.provenance.log import DISCLOSURE_FIELDS, utc_now
+from redact.provenance.log import DISCLOSURE_FIELDS, decode_entry, utc_now
 from redact.provenance.package import ENVELOPE, LOG, QUALITY, REVIEW, SKELETONS, open_package, read_statement_unverified
 from redact.ranges import format_ranges
 from redact.report.plots import Timeline, data_uri, redacted_frames, thumbnail_jpeg, timeline_svg
@@ -34,7 +35,6 @@ MAX_THUMBNAILS = 60
 MAX_QUALITY_ROWS = 2_000_000
 #: Most log entries shown in the table (common practice).
 MAX_LOG_ROWS = 500
-REVIEW_LIMIT = 64 * 1024 * 1024  # bytes; common practice, as redact.provenance.package
 
 REASON_WORDS = {
     "dark": "dark picture",
@@ -144,7 +144,8 @@ def _read_log(contents: PackageContents, problems: list[str]) -> list[dict]:
     try:
         for n, line in contents.lines(LOG):
             try:
-                entries.append(jsonio.loads_object(line, f"{LOG} line {n}"))
+                what = f"{LOG} line {n}"
+                entries.append(decode_entry(line, what) if contents.verified else jsonio.loads_object(line, what))
             except PackageError as e:
                 problems.append(str(e))
     except (PackageError, VerificationFailed) as e:
@@ -158,11 +159,15 @@ def _read_quality(contents: PackageContents, problems: list[str]) -> Timeline | 
         return None
     cols: dict[str, list] = {k: [] for k in ("t", "people", "observed", "mean_conf", "luma_mean", "fault")}
     try:
-        for n, line in contents.lines(QUALITY):
+        for n, line in contents.lines(QUALITY, quality_jsonl.LINE_LIMIT):
             if n > MAX_QUALITY_ROWS:
                 problems.append(f"{QUALITY}: more than {MAX_QUALITY_ROWS} rows; the timeline is cut there")
                 break
-            row = jsonio.loads_object(line, f"{QUALITY} line {n}")
+            what = f"{QUALITY} line {n}"
+            if contents.verified:  # the one strict decoder of the format
+                row = asdict(quality_jsonl.decode_quality_line(line, what))
+            else:  # a package that failed verification: shown as far as it reads, every value escaped
+                row = jsonio.loads_object(line, what)
             for k in ("t", "people", "observed", "mean_conf", "luma_mean"):
                 cols[k].append(_num(row.get(k)))
             cols["fault"].append(row.get("fault") is True)
@@ -183,11 +188,18 @@ def _read_review(contents: PackageContents, problems: list[str]) -> tuple[list[d
         problems.append(f"{REVIEW} is missing: no review ranges")
         return [], {}
     try:
-        doc = jsonio.loads(contents.read_bytes(REVIEW, REVIEW_LIMIT), REVIEW, REVIEW_LIMIT)
+        data = contents.read_bytes(REVIEW, review_json.LIMIT)
+        if contents.verified:  # the one strict decoder of the format
+            doc = review_json.decode_review(data)
+            ranges = [{"start": r.frame_start, "end": r.frame_end, "t_start": r.t_start, "t_end": r.t_end,
+                       "reasons": list(r.reasons)} for r in doc.ranges]
+            return ranges, dict(doc.rules)
+        raw = jsonio.loads(data, REVIEW, review_json.LIMIT)
     except (PackageError, VerificationFailed) as e:
         problems.append(str(e))
         return [], {}
-    items = doc.get("ranges") if isinstance(doc, dict) else None
+    # A package that failed verification: shown as far as it reads, every value escaped.
+    items = raw.get("ranges") if isinstance(raw, dict) else None
     ranges = []
     for r in items if isinstance(items, list) else []:
         if not isinstance(r, dict):
@@ -195,7 +207,7 @@ def _read_review(contents: PackageContents, problems: list[str]) -> tuple[list[d
         reasons = r.get("reasons") if isinstance(r.get("reasons"), list) else []
         ranges.append({"start": r.get("frame_start"), "end": r.get("frame_end"), "t_start": r.get("t_start"),
                        "t_end": r.get("t_end"), "reasons": [str(x) for x in reasons]})
-    return ranges, _obj(doc, "rules")
+    return ranges, _obj(raw, "rules")
 
 
 def _read(package: Path, verified: VerifiedPackage | None) -> _Contents:

@@ -20,7 +20,6 @@ the tool numbers tracks in order of first appearance, that order still shows in 
 
 from __future__ import annotations
 
-import json
 import os
 import shutil
 import tempfile
@@ -28,66 +27,33 @@ from collections.abc import Sequence
 from dataclasses import dataclass, replace
 from pathlib import Path
 
-from redact import __version__, jsonio
+from redact import __version__
 from redact.errors import InputError, OutputError, PackageError
+from redact.formats import quality_jsonl, review_json, skeletons_jsonl, tracks_json
+from redact.formats.tracks_json import TrackRecord
 from redact.provenance.contents import VerifiedPackage
 from redact.provenance.log import TransformLog, utc_now
 from redact.provenance.package import ENVELOPE, LOG, QUALITY, REVIEW, SKELETONS, TRACKS, write_package
 from redact.provenance.predicate import Disclosure, ParentRecord, Predicate, ToolRecord
 from redact.skeletons.privacy import PrivacyOptions, apply_privacy_file, parse_keypoints
 
-_PEOPLE = b'"people":['
-_ROW_END = b"]}\n"
-_SPLIT = b'},{"id":'
-
-
 # ---- inside a staging directory ------------------------------------------------------------------
 
 def _first_time_and_units(path: Path) -> float | None:
     """Stream time of the first row (None for an empty file); InputError when any row is not in pixels."""
     t0 = None
-    with open(path, "rb") as f:
-        for n, line in enumerate(f, 1):
-            if b'"units":' in line:
-                raise InputError(f"{SKELETONS} line {n}: coordinates are not in pixels (a de-identified "
-                                 "package); the options apply to pixel coordinates only: derive from a "
-                                 "package in pixels")
-            if t0 is None:
-                try:
-                    t0 = float(json.loads(line)["t"])
-                except (ValueError, KeyError, TypeError) as e:
-                    raise InputError(f"{SKELETONS} line {n}: {e}") from None
+    try:
+        with open(path, "rb") as f:
+            for n, row in enumerate(skeletons_jsonl.read_stream(f), 1):
+                if row.units != "pixels":
+                    raise InputError(f"{SKELETONS} line {n}: coordinates are not in pixels (a de-identified "
+                                     "package); the options apply to pixel coordinates only: derive from a "
+                                     "package in pixels")
+                if t0 is None:
+                    t0 = row.t
+    except PackageError as e:
+        raise InputError(str(e)) from None
     return t0
-
-
-def _sort_people(line: bytes, people: list[dict]) -> bytes:
-    """The row with its people sorted by id, rebuilt from the row's own bytes (numbers unchanged).
-
-    Relies on the fixed layout written by redact.skeletons.rows / redact.skeletons.privacy: person objects hold only
-    arrays, so consecutive people are separated by exactly `},{"id":`.
-    """
-    head, sep, rest = line.partition(_PEOPLE)
-    if not sep or not rest.endswith(_ROW_END) or not rest.startswith(b'{"id":'):
-        raise OutputError(f"{SKELETONS}: unexpected row layout; cannot reorder people")
-    body = rest[len(b'{"id":'):-len(b"}" + _ROW_END)]
-    parts = body.split(_SPLIT)
-    if len(parts) != len(people):
-        raise OutputError(f"{SKELETONS}: unexpected row layout; cannot reorder people")
-    order = sorted(range(len(people)), key=lambda i: people[i]["id"])
-    new = head + _PEOPLE + b'{"id":' + _SPLIT.join(parts[i] for i in order) + b"}" + _ROW_END
-    check = json.loads(new)["people"]
-    if check != [people[i] for i in order]:  # the rebuilt row must hold exactly the same people
-        raise OutputError(f"{SKELETONS}: reordering people changed a row; refusing to write it")
-    return new
-
-
-def _tracks_doc(stats: dict[int, dict]) -> bytes:
-    """tracks.json in the format the pipeline writes, rebuilt from rows; sorted by id."""
-    doc = {"tracks": [{"id": tid, "first_frame": s["first_frame"], "last_frame": s["last_frame"],
-                       "frames_observed": s["frames_observed"], "frames_predicted": s["frames_predicted"],
-                       "first_t": round(s["first_t"], 6), "last_t": round(s["last_t"], 6)}
-                      for tid, s in sorted(stats.items())]}
-    return (json.dumps(doc, sort_keys=True, separators=(",", ":"), allow_nan=False) + "\n").encode()
 
 
 def _write_via_temp(path: Path, chunks) -> None:
@@ -102,68 +68,50 @@ def _write_via_temp(path: Path, chunks) -> None:
             os.unlink(tmp)
 
 
-def _rows_pass(path: Path) -> tuple[dict[int, dict], int]:
-    """Sort people by id in every row (streamed into a temporary file, kept only when a row changed);
-    per-track stats from the rows."""
+def _rows_pass(path: Path) -> tuple[list[TrackRecord], int]:
+    """Sort people by id in every row, through the typed rows (streamed into a temporary file, kept
+    only when a row changed); the tracks.json records rebuilt from the rows."""
     stats: dict[int, dict] = {}
     reordered = 0
     tmp = path.with_name(f".{path.name}.sorted-{os.getpid()}")
     try:
         with open(path, "rb") as f, open(tmp, "wb") as out:
-            for line in f:
-                d = json.loads(line)
-                people = d["people"]
-                ids = [p["id"] for p in people]
-                if ids != sorted(ids):
-                    line = _sort_people(line, people)
+            for row in skeletons_jsonl.read_stream(f):
+                people = sorted(row.people, key=lambda p: p.id)
+                if [p.id for p in people] != [p.id for p in row.people]:
+                    row = replace(row, people=tuple(people))
                     reordered += 1
-                out.write(line)
-                for p in people:
-                    s = stats.get(p["id"])
+                out.write(skeletons_jsonl.encode_row(row))
+                for p in row.people:
+                    s = stats.get(p.id)
                     if s is None:
-                        s = stats[p["id"]] = {"first_frame": d["frame"], "first_t": d["t"],
-                                              "frames_observed": 0, "frames_predicted": 0}
-                    s["last_frame"], s["last_t"] = d["frame"], d["t"]
-                    s["frames_observed" if p["state"] == "observed" else "frames_predicted"] += 1
+                        s = stats[p.id] = {"first_frame": row.frame, "first_t": row.t,
+                                           "frames_observed": 0, "frames_predicted": 0}
+                    s["last_frame"], s["last_t"] = row.frame, row.t
+                    s["frames_observed" if p.observed else "frames_predicted"] += 1
         if reordered:
             os.replace(tmp, path)
     finally:
         if os.path.lexists(tmp):
             os.unlink(tmp)
-    return stats, reordered
+    records = [TrackRecord(tid, s["first_frame"], s["last_frame"], s["frames_observed"], s["frames_predicted"],
+                           s["first_t"], s["last_t"]) for tid, s in sorted(stats.items())]
+    return records, reordered
 
 
 def _retime_quality(path: Path, t0: float) -> int:
-    """quality.jsonl with t relative to t0; every line must re-encode to its own bytes first."""
-    from redact.redaction.quality import FrameQuality, encode_quality_line
-
-    out, n = [], 0
+    """quality.jsonl with t relative to t0, through its typed lines (redact.formats.quality_jsonl)."""
     with open(path, "rb") as f:
-        for n, line in jsonio.iter_lines(f, QUALITY):
-            d = jsonio.loads_object(line, f"{QUALITY} line {n}")
-            try:
-                q = FrameQuality(**{k: v for k, v in d.items() if k != "reasons"}, reasons=tuple(d["reasons"]))
-            except (TypeError, KeyError) as e:
-                raise PackageError(f"{QUALITY} line {n}: unexpected fields ({e})") from None
-            if encode_quality_line(q) != line:
-                raise PackageError(f"{QUALITY} line {n}: not in the format this tool writes; cannot shift its times")
-            out.append(encode_quality_line(replace(q, t=q.t - t0)))
-    _write_via_temp(path, out)
-    return n
+        lines = list(quality_jsonl.read_quality(f))
+    _write_via_temp(path, [quality_jsonl.encode_quality_line(replace(q, t=q.t - t0)) for q in lines])
+    return len(lines)
 
 
 def _retime_review(path: Path, t0: float) -> int:
-    """review.json with t_start / t_end relative to t0 (same layout as redact.redaction.quality.review_document)."""
-    doc = jsonio.loads(path.read_bytes(), REVIEW)
-    ranges = doc.get("ranges") if isinstance(doc, dict) else None
-    if not isinstance(ranges, list):
-        raise PackageError(f"{REVIEW}: no list of ranges; cannot shift its times")
-    for r in ranges:
-        for k in ("t_start", "t_end"):
-            if isinstance(r, dict) and isinstance(r.get(k), (int, float)) and not isinstance(r.get(k), bool):
-                r[k] = round(r[k] - t0, 6)
-    data = (json.dumps(doc, sort_keys=True, indent=2, ensure_ascii=False, allow_nan=False) + "\n").encode("utf-8")
-    _write_via_temp(path, [data])
+    """review.json with t_start / t_end relative to t0, through its typed value (redact.formats.review_json)."""
+    doc = review_json.decode_review(path.read_bytes())
+    ranges = tuple(replace(r, t_start=r.t_start - t0, t_end=r.t_end - t0) for r in doc.ranges)
+    _write_via_temp(path, [review_json.encode_review(replace(doc, ranges=ranges))])
     return len(ranges)
 
 
@@ -183,15 +131,14 @@ def rewrite_skeleton_files(pkg_dir: Path, options: PrivacyOptions, frame_size: t
         raise InputError(f"{skel}: missing; nothing to de-identify")
     tracks_in = None
     if (pkg_dir / TRACKS).is_file():
-        doc = jsonio.loads((pkg_dir / TRACKS).read_bytes(), TRACKS)
-        tracks_in = len(doc["tracks"]) if isinstance(doc, dict) and isinstance(doc.get("tracks"), list) else None
+        tracks_in = len(tracks_json.decode_tracks((pkg_dir / TRACKS).read_bytes()))
     t0 = _first_time_and_units(skel)
     summary = apply_privacy_file(skel, skel, options, frame_size, fps)
-    stats, reordered = _rows_pass(skel)
-    _write_via_temp(pkg_dir / TRACKS, [_tracks_doc(stats)])
+    records, reordered = _rows_pass(skel)
+    _write_via_temp(pkg_dir / TRACKS, [tracks_json.encode_tracks(records)])
     summary["rows_people_reordered"] = reordered
     summary["tracks_in"] = tracks_in
-    summary["tracks_out"] = len(stats)
+    summary["tracks_out"] = len(records)
     if options.relative_time and t0 is not None:
         summary["time_offset_removed"] = True
         if (pkg_dir / QUALITY).is_file():

@@ -33,11 +33,11 @@ from pathlib import Path
 import numpy as np
 
 from redact.errors import InputError, OutputError, PackageError, VerificationFailed
+from redact.formats import skeletons_jsonl
 from redact.provenance.contents import PackageContents
 from redact.provenance.package import open_package
 from redact.provenance.predicate import Predicate
-from redact.skeletons.privacy import decode_row_extras
-from redact.skeletons.rows import decode_row
+from redact.skeletons.rows import tracks_of
 from redact.vision.skeleton import KEYPOINT_NAMES, LINKS_1BASED
 
 FORMATS = ("npz", "coco")
@@ -111,25 +111,24 @@ class _Row:
 
 
 def _rows(lines: Iterable[bytes]) -> Iterator[_Row]:
-    """Parse and check rows: strict decoding, one units value for the whole file, unique frame indices."""
+    """Parse and check rows: strict decoding (redact.formats.skeletons_jsonl), one units value for the
+    whole file, unique frame indices."""
     units = None
     seen: set[int] = set()
     for n, line in enumerate(lines, 1):
-        try:
-            r = decode_row(line)
-            ex = decode_row_extras(line)
-        except (ValueError, KeyError, TypeError) as e:
-            raise PackageError(f"{SKELETONS} line {n}: {e}") from None
+        row = skeletons_jsonl.decode_row(line, f"{SKELETONS} line {n}")
         if units is None:
-            units = ex.units
-        elif ex.units != units:
-            raise PackageError(f"{SKELETONS} line {n}: units {ex.units!r} differ from {units!r} of line 1")
-        if r.frame in seen:
-            raise PackageError(f"{SKELETONS} line {n}: frame {r.frame} appears twice")
-        seen.add(r.frame)
-        tr = r.tracks
-        yield _Row(r.frame, r.t, r.status, ex.units, tr.ids, tr.boxes, tr.scores, tr.keypoints, tr.observed,
-                   ex.centres)
+            units = row.units
+        elif row.units != units:
+            raise PackageError(f"{SKELETONS} line {n}: units {row.units!r} differ from {units!r} of line 1")
+        if row.frame in seen:
+            raise PackageError(f"{SKELETONS} line {n}: frame {row.frame} appears twice")
+        seen.add(row.frame)
+        tr = tracks_of(row)
+        has = [p.centre is not None for p in row.people]
+        centres = np.array([p.centre for p in row.people], np.float64).reshape(-1, 2) if has and all(has) else None
+        yield _Row(row.frame, row.t, row.status, row.units, tr.ids, tr.boxes, tr.scores, tr.keypoints, tr.observed,
+                   centres)
 
 
 def _temp_for(out: Path) -> Path:

@@ -20,13 +20,12 @@ may be made relative to the first row. Each filter counts what it removed (`Priv
 
 Rows written in frame or track units carry `"units":"frame"` or `"units":"track"` after
 `"status"` (absent means pixels) and, for track units with the position kept, each person
-carries `"centre":[x,y]` in fractions of the frame; `redact.skeletons.rows.decode_row` reads such rows
-unchanged (it ignores the extra keys), `decode_row_extras` reads the extras.
+carries `"centre":[x,y]` in fractions of the frame. The row format, extras included, has one
+owner: redact.formats.skeletons_jsonl (`decode_row_extras` here reads the extras of a line).
 """
 
 from __future__ import annotations
 
-import json
 import math
 import os
 import secrets
@@ -36,8 +35,9 @@ from fractions import Fraction
 
 import numpy as np
 
-from redact.errors import InputError
-from redact.skeletons.rows import CONF_DECIMALS, COORD_DECIMALS, TIME_DECIMALS, FrameRow, _num, encode_row
+from redact.errors import InputError, PackageError
+from redact.formats import skeletons_jsonl as fmt
+from redact.skeletons.rows import COORD_DECIMALS, FrameRow, row_of
 from redact.vision.records import Tracks
 from redact.vision.skeleton import HEAD_KEYPOINTS, KEYPOINT_NAMES, NUM_KEYPOINTS
 
@@ -325,26 +325,10 @@ def scan_tracks(rows: Iterable[FrameRow]) -> TrackScan:
 
 def encode_row_units(frame: int, pts: int | None, t: float, tracks: Tracks, status: str, decimals: int,
                      units: str, centres: np.ndarray | None = None) -> bytes:
-    """encode_row plus `"units"` (omitted for pixels) and per-person `"centre"` [M,2]; same fixed decimals.
-
-    With units="pixels" and no centres the bytes are exactly encode_row's.
-    """
-    if units == "pixels" and centres is None:
-        return encode_row(frame, pts, t, tracks, status, coord_decimals=decimals)
-    people = []
-    for i in range(len(tracks)):
-        box = ",".join(_num(v, decimals) for v in tracks.boxes[i])
-        kp = ",".join(f"[{_num(x, decimals)},{_num(y, decimals)},{_num(c, CONF_DECIMALS)}]"
-                      for x, y, c in tracks.keypoints[i])
-        centre = "" if centres is None else \
-            f',"centre":[{_num(centres[i, 0], DEFAULT_DECIMALS["frame"])},{_num(centres[i, 1], DEFAULT_DECIMALS["frame"])}]'
-        state = "observed" if tracks.observed[i] else "predicted"
-        people.append(f'{{"id":{int(tracks.ids[i])},"state":"{state}","score":{_num(tracks.scores[i], CONF_DECIMALS)},'
-                      f'"box":[{box}]{centre},"kp":[{kp}]}}')
-    pts_s = "null" if pts is None else str(int(pts))
-    units_s = "" if units == "pixels" else f',"units":"{units}"'
-    return (f'{{"frame":{int(frame)},"pts":{pts_s},"t":{_num(t, TIME_DECIMALS)},"status":"{status}"{units_s},'
-            f'"people":[{",".join(people)}]}}\n').encode()
+    """A skeleton row with `"units"` (omitted for pixels) and per-person `"centre"` [M,2], written by
+    the one encoder of redact.formats.skeletons_jsonl; with units="pixels" and no centres the bytes
+    are exactly encode_row's."""
+    return fmt.encode_row(row_of(frame, pts, t, tracks, status, decimals, units, centres))
 
 
 @dataclass(frozen=True)
@@ -356,17 +340,11 @@ class RowExtras:
 
 
 def decode_row_extras(line: bytes | str) -> RowExtras:
-    """Read the `units` marker and per-person `centre` of a row; raises ValueError when malformed."""
-    d = json.loads(line)
-    units = d.get("units", "pixels")
-    if units not in COORDINATE_MODES:
-        raise ValueError(f"unknown units {units!r}")
-    people = d["people"]
-    has = [("centre" in p) for p in people]
-    if any(has) and not all(has):
-        raise ValueError("some people carry a centre and some do not")
-    centres = np.array([p["centre"] for p in people], np.float64).reshape(-1, 2) if people and all(has) else None
-    return RowExtras(units, centres)
+    """The `units` marker and per-person `centre` of a row (strict decoding); PackageError when malformed."""
+    row = fmt.decode_row(line)
+    has = [p.centre is not None for p in row.people]
+    centres = np.array([p.centre for p in row.people], np.float64).reshape(-1, 2) if has and all(has) else None
+    return RowExtras(row.units, centres)
 
 
 # ---- the stream ------------------------------------------------------------------------------
@@ -544,7 +522,7 @@ def apply_privacy_file(src, dst, options: PrivacyOptions, frame_size: tuple[int,
             for line in run:
                 out.write(line)
         os.replace(tmp, dst)
-    except ValueError as e:  # a malformed row (read_rows names the line)
+    except (ValueError, PackageError) as e:  # a malformed row (read_rows names the line)
         tmp.unlink(missing_ok=True)
         raise InputError(f"{src}: {e}") from None
     except BaseException:
