@@ -11,11 +11,28 @@ from redact.pipeline import ProcessSettings
 from redact.redaction.quality import ReviewRules
 from redact.redaction.regions import RegionSettings
 from redact.redaction.render import STYLES, RenderSettings
-from redact.vision.models import DEFAULT_POSE_MODEL, list_models
+from redact.vision.models import DEFAULT_POSE_MODEL
 from redact.vision.pose import PoseSettings
 from redact.vision.track import TrackerConfig
 
-POSE_MODELS = tuple(m.id for m in list_models() if m.task == "pose")
+
+class BundledModelChoice(click.Choice):
+    """A click.Choice of the bundled models for one task, read from their manifests when first
+    needed (help, completion or a value to check), never when the CLI is imported."""
+
+    def __init__(self, task: str) -> None:
+        self.task = task
+        self.case_sensitive = True
+        self._choices: tuple[str, ...] | None = None
+
+    @property
+    def choices(self) -> tuple[str, ...]:  # type: ignore[override]
+        if self._choices is None:
+            from redact.vision.models import list_models
+
+            self._choices = tuple(m.id for m in list_models() if m.task == self.task)
+        return self._choices
+
 
 
 def pipeline_options(fn):
@@ -34,7 +51,7 @@ def pipeline_options(fn):
                   help="How long a person whose detection is lost stays obscured along the predicted path.")
     @click.option("--score-threshold", type=click.FloatRange(0.01, 0.99), default=0.25, show_default=True,
                   help="Minimum person score of the detector. Lower finds more people and more false alarms.")
-    @click.option("--pose-model", type=click.Choice(POSE_MODELS), default=DEFAULT_POSE_MODEL, show_default=True,
+    @click.option("--pose-model", type=BundledModelChoice("pose"), default=DEFAULT_POSE_MODEL, show_default=True,
                   help="Bundled pose model (`redact models` and models_manifest/ say what each is). "
                        "yolo11n-pose-int8 is yolo11n-pose quantised to int8: about 1.5-2x faster on the CPU, "
                        "keypoints a few pixels from the float32 model's; choose yolo11n-pose for the most "
