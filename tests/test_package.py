@@ -59,7 +59,7 @@ def synthetic_rows() -> bytes:
 
 
 def build_package(root: Path, signer: signing.Signer, *, archive: bool = False, video: bool = True,
-                  name: str = "package") -> dict:
+                  name: str = "package", stopped_early: str | None = None) -> dict:
     """A complete signed package from small synthetic files; returns its paths and payload."""
     root.mkdir(parents=True, exist_ok=True)
     source = root / "source.bin"
@@ -84,7 +84,7 @@ def build_package(root: Path, signer: signing.Signer, *, archive: bool = False, 
     predicate = test_predicate(
         SourceRecord(name="source.bin", sha256=hashlib.sha256(source.read_bytes()).hexdigest(),
                      bytes=source.stat().st_size, duration=0.24, fps="25/1", frames=N_FRAMES,
-                     width=64, height=48, frames_root=merkle.root(digests).hex()))
+                     width=64, height=48, frames_root=merkle.root(digests).hex(), stopped_early=stopped_early))
     final = root / (f"{name}.tar" if archive else name)
     payload = package.write_package(staging, final, predicate, signer, video=red if video else None, archive=archive,
                                     clock=FIXED_CLOCK)

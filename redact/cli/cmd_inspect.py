@@ -35,6 +35,8 @@ def inspect(package: Path, trusted_keys: tuple[Path, ...], as_json: bool) -> Non
     if not summary["verified"]:
         click.echo("warning: NOT VERIFIED (no --trusted-key given); run `redact verify` before relying on this",
                    err=True)
+    for w in summary["warnings"]:
+        click.echo(f"WARNING: {w}")
     src, model, counts = summary["source"], summary["model"], summary["counts"]
     click.echo(f"package:  {package} ({'verified' if summary['verified'] else 'unverified'})")
     click.echo(f"key id:   {summary['key_id']}")

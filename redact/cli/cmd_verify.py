@@ -101,16 +101,23 @@ def verify(package: Path, trusted_keys: tuple[Path, ...], required: tuple[Path, 
             for f in e.findings:
                 click.echo(f"  - {f}")
         sys.exit(1)
-    if quiet:
-        return
     src = result.predicate.source
+    partial = src.partial_warning()
+    if quiet:
+        if partial:  # even quiet: a valid package of a partly decoded source must not pass unnoticed
+            click.echo(f"WARNING: {partial}", err=True)
+        return
     signers = _signer_lines(result)
     if as_json:
-        echo_json({"valid": True, "package": str(package), "key_id": result.key_id, "signers": signers,
+        echo_json({"valid": True, "package": str(package), "warnings": [partial] if partial else [],
+                   "stopped_early": src.stopped_early, "key_id": result.key_id, "signers": signers,
                    "checked": list(result.checked), "notes": list(result.notes),
-                   "source": {"name": src.name, "sha256": src.sha256, "bytes": src.bytes}, "findings": []})
+                   "source": {"name": src.name, "sha256": src.sha256, "bytes": src.bytes, "frames": src.frames},
+                   "findings": []})
         return
-    click.echo(f"VALID {package}")
+    if partial:
+        click.echo(f"WARNING: {partial}")
+    click.echo(f"VALID {package}" + (" (a PARTIAL source: see the warning above)" if partial else ""))
     click.echo(f"  signed by {len(signers)} key(s):")
     for s in signers:
         role = "author (named by the log)" if s["role"] == "author" else "countersignature"

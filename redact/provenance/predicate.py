@@ -149,6 +149,16 @@ class SourceRecord:
         f.done()
         return r
 
+    def partial_warning(self) -> str | None:
+        """The words a recipient must read first when the source was only partly decoded (None when
+        it was decoded to its end): shown at the top of verify, inspect and the report."""
+        if self.stopped_early is None:
+            return None
+        return (f"PARTIAL SOURCE: this package covers only the first {self.frames} frame(s) of {self.name}; "
+                f"decoding stopped before the end of the file ({self.stopped_early}). Nothing after that point "
+                "was redacted, tracked or checked, and people who appear only there are in neither this "
+                "package nor the redacted video.")
+
     @property
     def fps_value(self) -> float | None:
         """The frame rate as a number (None when it is 0/1, i.e. unknown)."""

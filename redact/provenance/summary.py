@@ -46,6 +46,8 @@ def summarise(contents: PackageContents) -> dict:
     key_id = getattr(contents, "key_id", None) if contents.verified else getattr(contents, "key_id_hint", None)
     return {
         "verified": contents.verified,
+        "stopped_early": pred.source.stopped_early,
+        "warnings": [w for w in (pred.source.partial_warning(),) if w],
         "key_id": key_id,
         "source": pred.source.to_json(),
         "model": pred.model.to_json(),

@@ -26,6 +26,7 @@ from redact.formats import quality_jsonl, review_json
 from redact.provenance.contents import PackageContents, UnverifiedPackage, VerifiedPackage
 from redact.provenance.log import DISCLOSURE_FIELDS, decode_entry, utc_now
 from redact.provenance.package import ENVELOPE, LOG, QUALITY, REVIEW, SKELETONS, open_package, read_statement_unverified
+from redact.provenance.predicate import SourceRecord
 from redact.ranges import format_ranges
 from redact.report.plots import Timeline, data_uri, redacted_frames, thumbnail_jpeg, timeline_svg
 
@@ -359,6 +360,20 @@ def _status_section(verified: bool, key_id: str | None, checked: Sequence[str], 
             f'<p><b>{len(findings)} finding(s):</b></p><ul class="findings">{items}</ul></div>')
 
 
+def _partial_source_section(pred: dict, verified: bool) -> str:
+    """At the top, for a package of a partly decoded source: what it does not cover."""
+    src = _obj(pred, "source")
+    if not src.get("stopped_early"):
+        return ""
+    try:
+        text = SourceRecord.parse(src).partial_warning()
+    except PackageError:  # an unverified, malformed statement: say it in general words
+        text = f"PARTIAL SOURCE: decoding stopped before the end of the file ({src.get('stopped_early')})."
+    note = "" if verified else " (read from a package that FAILED verification)"
+    return (f'<div class="status bad" id="partial-source"><p class="big">PARTIAL SOURCE — this record does not '
+            f"cover the whole video{esc(note)}</p><p>{esc(text)}</p></div>")
+
+
 def _source_section(pred: dict) -> str:
     src = _obj(pred, "source")
     size = _num(src.get("bytes"))
@@ -591,6 +606,7 @@ def make_report(package: Path, trusted_keys: list, video: Path | None = None,
         f"<header><h1>{esc(title)}</h1><p class=\"sub\">Report generated {esc(utc_now())} by redact "
         f"{esc(__version__)} from the package <span class=\"mono\">{esc(_package_label(package))}</span>.</p></header>",
         _status_section(verified, key_id, checked, findings, video, source),
+        _partial_source_section(pred, verified),
         (f'<div class="status bad"><p><b>Parts of the package could not be read:</b></p><ul>{problems}</ul></div>'
          if problems else ""),
         _cautions_section(),
