@@ -160,10 +160,11 @@ def decode_row(line: bytes | str, what: str = f"{NAME} line") -> Row:
         score = p["score"]
         if isinstance(score, bool) or not isinstance(score, (int, float)):
             raise PackageError(f"{pw}: score must be a number")
-        people.append(Person(
-            _int(p["id"], f"{pw}: id"), p["state"], float(score), _nums(p["box"], 4, f"{pw}: box"),  # type: ignore[arg-type]
-            tuple(_nums(k, 3, f"{pw}: keypoint {j}") for j, k in enumerate(kp)),  # type: ignore[misc]
-            None if "centre" not in p else _nums(p["centre"], 2, f"{pw}: centre")))  # type: ignore[arg-type]
+        pid = _int(p["id"], f"{pw}: id")
+        box = _nums(p["box"], 4, f"{pw}: box")
+        keypoints = tuple(_nums(k, 3, f"{pw}: keypoint {j}") for j, k in enumerate(kp))
+        centre = None if "centre" not in p else _nums(p["centre"], 2, f"{pw}: centre")
+        people.append(Person(pid, p["state"], float(score), box, keypoints, centre))  # type: ignore[arg-type]
     if not 0 <= decimals <= MAX_DECIMALS:
         raise PackageError(f"{what}: coordinates must have 0..{MAX_DECIMALS} fixed decimals")
     with_centre = [p.centre is not None for p in people]

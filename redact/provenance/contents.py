@@ -19,7 +19,7 @@ from collections.abc import Iterator
 from contextlib import contextmanager
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import BinaryIO
+from typing import BinaryIO, cast
 
 from redact import jsonio
 from redact.errors import PackageError, VerificationFailed
@@ -115,7 +115,7 @@ class VerifiedPackage(PackageContents):
                 raise VerificationFailed([f"{name}: changed after verification (SHA-256 or size differs from "
                                           "the signed statement); refusing to read it"])
             snapshot.seek(0)
-            yield snapshot
+            yield cast(BinaryIO, snapshot)
         finally:
             snapshot.close()
 

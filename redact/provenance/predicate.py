@@ -60,7 +60,8 @@ class _Fields:
     def __init__(self, obj: Any, where: str) -> None:
         if not isinstance(obj, dict):
             raise PackageError(f"{where}: must be a JSON object")
-        self.obj, self.where, self.used = obj, where, set()
+        self.obj, self.where = obj, where
+        self.used: set[str] = set()
 
     def _get(self, key: str, required: bool = True) -> Any:
         self.used.add(key)
@@ -73,7 +74,7 @@ class _Fields:
     def _bad(self, key: str, what: str) -> PackageError:
         return PackageError(f"{self.where}.{key}: must be {what}")
 
-    def str(self, key: str, nullable: bool = False, pattern: re.Pattern | None = None, what: str = "a string") -> Any:
+    def text(self, key: str, nullable: bool = False, pattern: re.Pattern | None = None, what: str = "a string") -> Any:
         v = self._get(key)
         if v is None and nullable:
             return None
@@ -81,7 +82,7 @@ class _Fields:
             raise self._bad(key, what + (" or null" if nullable else ""))
         return v
 
-    def int(self, key: str, nullable: bool = False) -> Any:
+    def count(self, key: str, nullable: bool = False) -> Any:
         v = self._get(key)
         if v is None and nullable:
             return None
@@ -95,13 +96,13 @@ class _Fields:
             raise self._bad(key, "a non-negative number")
         return float(v)
 
-    def bool(self, key: str) -> bool:
+    def flag(self, key: str) -> bool:
         v = self._get(key)
         if not isinstance(v, bool):
             raise self._bad(key, "true or false")
         return v
 
-    def obj_(self, key: str, nullable: bool = False) -> Any:
+    def object(self, key: str, nullable: bool = False) -> Any:
         v = self._get(key)
         if v is None and nullable:
             return None
@@ -142,10 +143,10 @@ class SourceRecord:
     @classmethod
     def parse(cls, obj: Any, where: str = "predicate.source") -> SourceRecord:
         f = _Fields(obj, where)
-        r = cls(f.str("name"), f.str("sha256", pattern=_HEX64, what="64 lowercase hex digits"), f.int("bytes"),
-                f.number("duration"), f.str("fps", pattern=_FPS, what='an exact rate "num/den"'), f.int("frames"),
-                f.int("width"), f.int("height"), f.str("stopped_early", nullable=True),
-                f.str("frames_root", nullable=True, pattern=_HEX64, what="64 lowercase hex digits"))
+        r = cls(f.text("name"), f.text("sha256", pattern=_HEX64, what="64 lowercase hex digits"), f.count("bytes"),
+                f.number("duration"), f.text("fps", pattern=_FPS, what='an exact rate "num/den"'), f.count("frames"),
+                f.count("width"), f.count("height"), f.text("stopped_early", nullable=True),
+                f.text("frames_root", nullable=True, pattern=_HEX64, what="64 lowercase hex digits"))
         f.done()
         return r
 
@@ -180,7 +181,7 @@ class ModelRecord:
     @classmethod
     def parse(cls, obj: Any, where: str = "predicate.model") -> ModelRecord:
         f = _Fields(obj, where)
-        r = cls(f.str("id"), f.str("sha256", pattern=_HEX64, what="64 lowercase hex digits"), f.str("licence"))
+        r = cls(f.text("id"), f.text("sha256", pattern=_HEX64, what="64 lowercase hex digits"), f.text("licence"))
         f.done()
         return r
 
@@ -211,7 +212,7 @@ class Disclosure:
     @classmethod
     def parse(cls, obj: Any, where: str = "predicate.disclosure") -> Disclosure:
         f = _Fields(obj, where)
-        values = {k: f.str(k) for k in DISCLOSURE_FIELDS if k in obj}
+        values = {k: f.text(k) for k in DISCLOSURE_FIELDS if k in obj}
         f.done()
         return cls(**values)
 
@@ -229,7 +230,7 @@ class ReviewCounts:
     @classmethod
     def parse(cls, obj: Any, where: str = "predicate.review") -> ReviewCounts:
         f = _Fields(obj, where)
-        r = cls(f.int("ranges"), f.int("flagged_frames"))
+        r = cls(f.count("ranges"), f.count("flagged_frames"))
         f.done()
         return r
 
@@ -246,7 +247,7 @@ class FaultCounts:
     @classmethod
     def parse(cls, obj: Any, where: str = "predicate.faults") -> FaultCounts:
         f = _Fields(obj, where)
-        r = cls(f.int("frames"))
+        r = cls(f.count("frames"))
         f.done()
         return r
 
@@ -276,8 +277,8 @@ class AuditRecord:
     @classmethod
     def parse(cls, obj: Any, where: str = "predicate.audit") -> AuditRecord:
         f = _Fields(obj, where)
-        r = cls(f.bool("passed"), f.int("faces"), f.int("persons"), f.int("source_faces", nullable=True),
-                f.int("survived", nullable=True))
+        r = cls(f.flag("passed"), f.count("faces"), f.count("persons"), f.count("source_faces", nullable=True),
+                f.count("survived", nullable=True))
         f.done()
         return r
 
@@ -303,8 +304,8 @@ class ParentRecord:
     def parse(cls, obj: Any, where: str = "predicate.parent") -> ParentRecord:
         f = _Fields(obj, where)
         hex64 = "64 lowercase hex digits"
-        r = cls(f.str("statement_sha256", pattern=_HEX64, what=hex64), f.str("key_id"),
-                f.str("log_head", nullable=True, pattern=_HEX64, what=hex64), f.obj_("privacy", nullable=True))
+        r = cls(f.text("statement_sha256", pattern=_HEX64, what=hex64), f.text("key_id"),
+                f.text("log_head", nullable=True, pattern=_HEX64, what=hex64), f.object("privacy", nullable=True))
         f.done()
         return r
 
@@ -322,7 +323,7 @@ class ToolRecord:
     @classmethod
     def parse(cls, obj: Any, where: str = "predicate.tool") -> ToolRecord:
         f = _Fields(obj, where)
-        r = cls(f.str("name"), f.str("version"))
+        r = cls(f.text("name"), f.text("version"))
         f.done()
         return r
 
@@ -340,7 +341,7 @@ class LogRecord:
     @classmethod
     def parse(cls, obj: Any, where: str = "predicate.log") -> LogRecord:
         f = _Fields(obj, where)
-        r = cls(f.str("head", pattern=_HEX64, what="64 lowercase hex digits"), f.int("entries"))
+        r = cls(f.text("head", pattern=_HEX64, what="64 lowercase hex digits"), f.count("entries"))
         f.done()
         return r
 
@@ -402,22 +403,22 @@ class Predicate:
                 raise PackageError(f"{where}.{k}: missing")
 
         def sub(key: str, parser, nullable: bool = False):
-            v = f.obj_(key, nullable)
+            v = f.object(key, nullable)
             return None if v is None else parser(v, f"{where}.{key}")
 
         p = cls(
             source=sub("source", SourceRecord.parse),
             model=sub("model", ModelRecord.parse),
-            parameters=f.obj_("parameters"),
-            privacy=f.obj_("privacy"),
+            parameters=f.object("parameters"),
+            privacy=f.object("privacy"),
             disclosure=sub("disclosure", Disclosure.parse),
             review=sub("review", ReviewCounts.parse),
             faults=sub("faults", FaultCounts.parse),
-            plan=f.obj_("plan", nullable=True),
+            plan=f.object("plan", nullable=True),
             audit=sub("audit", AuditRecord.parse, nullable=True),
             parent=sub("parent", ParentRecord.parse, nullable=True),
             tool=sub("tool", ToolRecord.parse),
-            created=f.str("created", pattern=_TIME, what="an RFC 3339 UTC time ending in Z"),
+            created=f.text("created", pattern=_TIME, what="an RFC 3339 UTC time ending in Z"),
             log=sub("log", LogRecord.parse, nullable=True),
         )
         f.done()

@@ -120,8 +120,9 @@ def _subjects(items: Any, findings: list[str]) -> list[Subject]:
             videos += 1
         if role == ROLE_FILE and name == "envelope.json":
             findings.append(f"{label}: the envelope cannot be its own subject")
-        if len(findings) == bad:
-            out.append(Subject(name, digest["sha256"], size, role))
+        sha = digest.get("sha256") if isinstance(digest, dict) else None
+        if len(findings) == bad and isinstance(sha, str) and isinstance(size, int) and isinstance(role, str):
+            out.append(Subject(name, sha, size, role))
     if videos > 1:
         findings.append(f"statement: {videos} redacted-video subjects, at most 1 allowed")
     return out
