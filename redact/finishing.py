@@ -176,13 +176,26 @@ class FrameSinks:
     records: Callable[[ObscureRecord], None] | None = None
 
 
+#: A stage that adds to a frame's obscure record: (the tracked frame, its record so far) → new record.
+Producer = Callable[[FrameWork, ObscureRecord], ObscureRecord]
+
+
 class FrameFinisher:
-    """`finish(work)` once per tracked frame, in frame order, then `flush()` once at the end."""
+    """`finish(work)` once per tracked frame, in frame order, then `flush()` once at the end.
+
+    producers: further stages that add regions to each frame's record after `frame_record`, in
+    order (a motion net, for instance). Each sees every frame in order, failed ones included (so
+    a stage with state, such as a background model, stays in step; record.fault is set on a
+    failed frame, whose record is the whole frame already); on a frame that has not
+    failed, a producer that raises fails that frame closed; on a failed frame, what it raises is
+    ignored (the frame is obscured whole anyway).
+    """
 
     def __init__(self, style: RenderSettings, detect_every: int, obscurer: Obscurer, lookback: LookBack,
-                 monitor: QualityMonitor, stats: RunStats, sinks: FrameSinks):
+                 monitor: QualityMonitor, stats: RunStats, sinks: FrameSinks, producers: tuple[Producer, ...] = ()):
         self.style, self.detect_every, self.obscurer = style, int(detect_every), obscurer
         self.lookback, self.monitor, self.stats, self.sinks = lookback, monitor, stats, sinks
+        self.producers = tuple(producers)
 
     def finish(self, work: FrameWork) -> None:
         frame, tracks, decision, error = work.frame, work.tracks, work.decision, work.error
@@ -198,7 +211,13 @@ class FrameFinisher:
         flags: tuple[str, ...] = ()
         if tracks is None or record is None:
             tracks, record = None, ObscureRecord.failed(frame.index, w, h, error or "unknown")
-        else:
+        for produce in self.producers:
+            try:
+                record = produce(work, record)
+            except Exception as e:  # fail closed, as above (a failed frame stays failed)
+                if tracks is not None:
+                    tracks, record = None, ObscureRecord.failed(frame.index, w, h, type(e).__name__)
+        if tracks is not None:
             obscured = tracks if decision is None else decision.obscure
             frame_ids = tracks.ids.tolist()
             flags = (KEPT_OVERLAP_FLAG,) if decision is not None and decision.overlap_ids else ()

@@ -200,3 +200,52 @@ def test_bad_records_are_refused():
     rec = ObscureRecord(0, 160, 120)
     with pytest.raises(RedactError, match="for 160×120 frames"):
         render_record(np.zeros((10, 10, 3), np.uint8), rec, RenderSettings())
+
+
+def test_added_producers_see_every_frame_in_order_and_fail_closed():
+    """A producer stage plugged into the finisher (as a motion net would be): its regions are
+    rendered, it sees failed frames too, and one that raises fails only that frame."""
+    import io
+    from fractions import Fraction
+
+    from redact.finishing import FrameFinisher, FrameSinks, FrameWork, LookBack, RunStats
+    from redact.media.video import Frame
+    from redact.redaction.quality import QualityMonitor
+
+    img = _scene()
+    img.flags.writeable = False
+    frames = [Frame(i, i * 512, Fraction(1, 12800), i / 25, img, bytes(32)) for i in range(6)]
+    seen: list[tuple[int, str | None]] = []
+
+    def motion(work, record):
+        seen.append((work.frame.index, record.fault))
+        return record.add(ObscureRegion(BoxArea((20, 10, 60, 30)), (Reason("motion", detail="blob"),)))
+
+    def flaky(work, record):
+        if work.frame.index in (2, 4):
+            raise ZeroDivisionError("injected")
+        return record
+
+    encoded: list[np.ndarray] = []
+    records: list[ObscureRecord] = []
+    skel = io.BytesIO()
+    stats = RunStats()
+    style = RenderSettings(style="fill")
+    sinks = FrameSinks(lambda image, pts: encoded.append(image), skel, io.BytesIO(), io.BytesIO(), 6,
+                       records=records.append)
+    finisher = FrameFinisher(style, 1, obscurer_for(style), LookBack(2, RegionSettings(), 0.6, stats),
+                             QualityMonitor(), stats, sinks, producers=(motion, flaky))
+    for f in frames:
+        finisher.finish(FrameWork(f, None, None, "Injected") if f.index == 4 else FrameWork(f, Tracks.empty()))
+    finisher.flush()
+    assert seen == [(0, None), (1, None), (2, None), (3, None), (4, "Injected"), (5, None)]
+    assert [r.fault for r in records] == [None, None, "ZeroDivisionError", None, "Injected", None]
+    assert stats.faults == [2, 4] and stats.fault_reasons == {"ZeroDivisionError": 1, "Injected": 1}
+    for k in (0, 1, 3, 5):
+        expect = img.copy()
+        expect[10:30, 20:60] = FILL_GREY
+        assert np.array_equal(encoded[k], expect)
+        assert records[k].reason_counts() == {"motion": 1}
+    assert (encoded[2] == FILL_GREY).all() and (encoded[4] == FILL_GREY).all()
+    rows_status = [json.loads(line)["status"] for line in skel.getvalue().splitlines()]
+    assert rows_status == ["ok", "ok", "fault", "ok", "fault", "ok"]
