@@ -45,3 +45,25 @@ class VerificationFailed(RedactError):
 
 class PlanError(InputError):
     """A redaction plan does not validate; the message names the field."""
+
+
+def _megabytes(n: int) -> str:
+    return f"{max(n, 0) / 1e6:,.0f} MB" if n >= 10e6 else f"{max(n, 0) / 1e6:.1f} MB"
+
+
+class NoSpaceError(OutputError):
+    """The file system holding an output is full (ENOSPC, or the quota: EDQUOT).
+
+    folder: where the output was being written; needed/free: the run's estimate of the space it
+    needs and the space free when it started, in bytes, when known.
+    """
+
+    def __init__(self, folder, needed: int | None = None, free: int | None = None):
+        self.folder, self.needed, self.free = folder, needed, free
+        text = f"no space left in {folder}"
+        if needed is not None:
+            text += f": this run needs about {_megabytes(needed)}"
+            if free is not None:
+                text += f" ({_megabytes(free)} were free when it started)"
+        super().__init__(text + "; free some space or choose another output folder (nothing that looks "
+                                "complete was left behind)")

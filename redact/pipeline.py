@@ -9,19 +9,20 @@ that fails its hash check stops the run before any output exists.
 
 from __future__ import annotations
 
+import contextlib
 import os
 import shutil
 import tempfile
 import time
 from collections.abc import Callable
-from dataclasses import asdict, dataclass, field
+from dataclasses import asdict, dataclass, field, replace
 from pathlib import Path
 from typing import TYPE_CHECKING
 
 import numpy as np
 
-from redact import __version__
-from redact.errors import InputError, OutputError
+from redact import __version__, fsio
+from redact.errors import InputError, NoSpaceError, OutputError, RedactError
 from redact.finishing import FrameFinisher, FrameSinks, FrameWork, LookBack, RunStats
 from redact.formats.tracks_json import TrackRecord, encode_tracks
 from redact.media.stages import WriteBehind, read_ahead
@@ -58,6 +59,7 @@ VIDEO_NAME = "redacted.mp4"
 #: Upper bound of frames inferred at once (common practice: beyond a few, ordering and memory cost more than they gain).
 MAX_MODEL_FRAMES = 4
 PACKAGE_NAME = "package"
+STAGING_PREFIX = ".redact-partial-"
 
 
 @dataclass(frozen=True)
@@ -176,6 +178,7 @@ class ProcessResult:
     key_id: str
     source_sha256: str
     audit: dict | None = None
+    notices: tuple[str, ...] = ()  # one line each for the operator (e.g. stale staging folders removed)
 
     @property
     def fps(self) -> float:
@@ -257,7 +260,7 @@ def process_video(source: str | Path, out_dir: str | Path, signer: Signer,
     started = time.perf_counter()
     source, out_dir = Path(source), Path(out_dir)
     info = probe(source)  # InputError for missing / not a video / zero frames
-    video_final, pkg_final = _check_paths(source, out_dir, settings.archive)
+    _check_paths(source, out_dir, settings.archive)
     entry = get_model(settings.pose.model, task="pose")
     plan_obj = None
     if plan is not None:
@@ -267,20 +270,103 @@ def process_video(source: str | Path, out_dir: str | Path, signer: Signer,
         plan_obj.check_settings(settings.ids, entry.sha256)
     if estimator is None:
         estimator = PoseEstimator.default(settings.pose, settings.model_threads)  # hash check before output
-    background = _build_background(source, estimator, settings) if settings.render.style == "background" else None
-    run = _Run(source, info, settings, entry, estimator, signer, plan_obj, background,
-               obscurer_for(settings.render, background),
-               disclosure, privacy, audit, progress, records, started)
 
+    created = _make_folder(out_dir)
     try:
-        out_dir.mkdir(parents=True, exist_ok=True)
-        staging = Path(tempfile.mkdtemp(prefix=".redact-partial-", dir=out_dir))
+        with fsio.lock_folder(out_dir) as lock:  # before any work: a second run into OUT stops here
+            video_final, pkg_final = _check_paths(source, out_dir, settings.archive)  # again, under the lock
+            notices = fsio.staging_notices(out_dir, *fsio.stale_staging(out_dir, STAGING_PREFIX, lock.acquired_at))
+            needed, free = _check_space(out_dir, info, settings)
+            try:
+                staging = Path(tempfile.mkdtemp(prefix=STAGING_PREFIX, dir=out_dir))
+            except OSError as e:
+                raise fsio.write_error(out_dir / STAGING_PREFIX, e) from None
+            try:
+                background = (_build_background(source, estimator, settings)
+                              if settings.render.style == "background" else None)
+                run = _Run(source, info, settings, entry, estimator, signer, plan_obj, background,
+                           obscurer_for(settings.render, background),
+                           disclosure, privacy, audit, progress, records, started)
+                result = _run(run, _Outputs(out_dir, staging, video_final, pkg_final))
+            except (RedactError, OSError) as e:
+                if fsio.no_space(e):
+                    raise NoSpaceError(out_dir, needed, free) from None
+                if isinstance(e, OSError) and _inside(e.filename, out_dir):
+                    raise OutputError(f"writing in {out_dir} failed: {e.strerror or e}") from None
+                raise
+            finally:
+                shutil.rmtree(staging, ignore_errors=True)  # every worker thread has stopped by now
+    except BaseException:
+        if created:
+            with contextlib.suppress(OSError):
+                out_dir.rmdir()  # only when empty: a folder this run made and left nothing in
+        raise
+    return replace(result, notices=notices)
+
+
+def _make_folder(out_dir: Path) -> bool:
+    """Create OUT (and its parents); True when this call created it."""
+    try:
+        out_dir.mkdir(parents=True)
+        return True
+    except FileExistsError:
+        if not out_dir.is_dir():
+            raise OutputError(f"--out {out_dir} exists and is not a directory") from None
+        return False
     except OSError as e:
-        raise OutputError(f"cannot write to {out_dir}: {e.strerror or e}") from None
+        raise fsio.write_error(out_dir, e) from None
+
+
+def _inside(name, folder: Path) -> bool:
+    if not isinstance(name, str | os.PathLike):
+        return False
     try:
-        return _run(run, _Outputs(out_dir, staging, video_final, pkg_final))
-    finally:
-        shutil.rmtree(staging, ignore_errors=True)
+        return Path(os.path.abspath(name)).is_relative_to(os.path.abspath(folder))
+    except (TypeError, ValueError):
+        return False
+
+
+#: Bits per pixel of the redacted H.264 video assumed by the space estimate (common practice:
+#: x264 at crf 20 stays near 0.1 bit per pixel on camera footage; obscured regions compress better).
+VIDEO_BITS_PER_PIXEL = 0.1
+#: Package bytes per frame assumed by the space estimate: a skeleton row of a few people, a quality
+#: line and a frame digest (common practice, from the sizes of the test clips' packages).
+PACKAGE_BYTES_PER_FRAME = 2500
+
+
+def estimate_output_bytes(info: VideoInfo, settings: ProcessSettings) -> int:
+    """Disk space a run needs in OUT, in bytes: the redacted video (the larger of the source size
+    and VIDEO_BITS_PER_PIXEL per pixel), twice with the source audio carried over (a second file is
+    written), the package (twice for an archive: the folder and the .tar exist together), 1 MB spare."""
+    video = max(info.bytes, int(info.frames * info.width * info.height * VIDEO_BITS_PER_PIXEL / 8))
+    if settings.include_audio and info.has_audio:
+        video *= 2
+    pkg = info.frames * PACKAGE_BYTES_PER_FRAME * (2 if settings.archive else 1)
+    return video + pkg + 1_000_000
+
+
+def _check_space(out_dir: Path, info: VideoInfo, settings: ProcessSettings) -> tuple[int, int | None]:
+    """(bytes needed, bytes free); NoSpaceError before any work when OUT's file system lacks them."""
+    needed = estimate_output_bytes(info, settings)
+    try:
+        free = fsio.free_bytes(out_dir)
+    except OSError:
+        return needed, None
+    if free < needed:
+        raise NoSpaceError(out_dir, needed, free)
+    return needed, free
+
+
+def _place(video_tmp: Path, video_final: Path, signed: Path, pkg_final: Path) -> None:
+    """Rename the video, then the package, into place, never over anything; the package last, so
+    its presence means the run completed. A package that cannot be placed takes the video back."""
+    fsio.rename_new(video_tmp, video_final)
+    try:
+        fsio.rename_new(signed, pkg_final)
+    except BaseException:
+        with contextlib.suppress(OSError):
+            os.rename(video_final, video_tmp)
+        raise
 
 
 @dataclass(frozen=True)
@@ -377,8 +463,11 @@ def _stream(run: _Run, out: _Outputs) -> _Streamed:
         # Detection may run on several frames at once; tracking stays here, in frame order.
         # Obscure records, the look-back, rendering, rows and quality run in one thread behind,
         # overlapping the next inferences.
-        with WriteBehind(finisher.finish, depth=2) as finishing:
-            for item in tracking.run(read_ahead(reader.frames(), depth=4)):
+        # Closing the tracking pass stops and joins the inference and decoding threads (on every exit
+        # path) before the reader closes its container: a decoder thread left inside FFmpeg can crash.
+        with WriteBehind(finisher.finish, depth=2) as finishing, \
+                contextlib.closing(tracking.run(read_ahead(reader.frames(), depth=4))) as tracked:
+            for item in tracked:
                 finishing.submit(_decide(run.plan, item))
                 n_frames += 1
         finisher.flush()
@@ -469,8 +558,7 @@ def _run(run: _Run, out: _Outputs) -> ProcessResult:
     )
     signed = out.staging / "signed"
     package.write_package(pkg_dir, signed, predicate, run.signer, video=video_tmp, archive=s.archive)
-    os.rename(video_tmp, out.video)
-    os.rename(signed, out.package)  # last: a package in place means the run completed
+    _place(video_tmp, out.video, signed, out.package)  # the package last: its presence means the run completed
     return ProcessResult(out.out_dir, out.video, out.package, seen.frames, len(summaries), tuple(stats.faults),
                          tuple(review), time.perf_counter() - run.started, seen.stopped_early,
                          run.signer.key_id, seen.sha256, audit_result)

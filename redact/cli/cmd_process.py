@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import os
 import sys
 from datetime import UTC, datetime
 from pathlib import Path
@@ -17,6 +16,7 @@ from redact.cli.options import disclosure_options, pipeline_options
 from redact.cli.privacy_options import privacy_options
 from redact.cli.progress import FrameProgress
 from redact.errors import InputError, OutputError
+from redact.fsio import atomic_write
 
 DEMO_PASSPHRASE = "demo only - not a secret"
 REPORT_NAME = "report.html"
@@ -62,24 +62,10 @@ def _check_report_free(out: Path, write_report: bool) -> Path | None:
 
 def _write_report(report: Path, result, signer) -> None:
     """The disclosure report of the run's package, checked with the key that just signed it, written
-    through a hidden temporary name and linked into place (never over an existing file)."""
+    through a hidden temporary name and renamed into place (never over an existing file: redact.fsio)."""
     from redact.report.document import build_report
 
-    data = build_report(result.package, [signer.public_key], video=result.video)
-    tmp = report.with_name(f".{report.name}.tmp-{os.getpid()}")
-    try:
-        with open(tmp, "xb") as f:
-            f.write(data)
-            f.flush()
-            os.fsync(f.fileno())
-        os.link(tmp, report)
-    except FileExistsError:
-        raise OutputError(f"{report} appeared while the report was written; it was left as it is") from None
-    except OSError as e:
-        raise OutputError(f"cannot write {report}: {e.strerror or e}") from None
-    finally:
-        if os.path.lexists(tmp):
-            os.unlink(tmp)
+    atomic_write(report, build_report(result.package, [signer.public_key], video=result.video))
 
 
 def open_first(result, report: Path | None, public_key: str) -> list[dict]:
@@ -116,9 +102,11 @@ def _run(source: Path, out: Path, signer, settings, disclosure, as_json: bool, q
                                progress=progress, audit=audit, plan=plan)
     finally:
         progress.close()
+    for line in result.notices:
+        click.echo(f"note: {line}", err=True)
     if result.stopped_early:
-        click.echo(f"warning: the source is damaged; {result.stopped_early}; only those frames were processed",
-                   err=True)
+        click.echo(f"warning: {source}: the source is damaged; {result.stopped_early}; only those frames were "
+                   "processed", err=True)
     if report is not None:
         _write_report(report, result, signer)
     items = open_first(result, report, public_key)

@@ -4,6 +4,11 @@ onnxruntime, OpenCV and FFmpeg release the GIL while they work, so decoding the 
 encoding the previous ones run beside inference, and several frames can be inferred at once
 (`map_ahead`). Queues are bounded, so memory does not grow with clip length; an error on either
 side stops both and is re-raised in the caller's thread.
+
+Stopping: `read_ahead` and `map_ahead` are generators whose threads are stopped and joined when
+they are closed. Close them (contextlib.closing) before closing what they read from: a decoder
+thread still inside FFmpeg when its container is closed can crash the process. Closing the outer
+`map_ahead` also closes the iterator it was given.
 """
 
 from __future__ import annotations
@@ -40,13 +45,16 @@ def read_ahead(items: Iterable[T], depth: int = 4) -> Iterator[T]:
         return False
 
     def work() -> None:
+        source = iter(items)
         try:
-            for item in items:
+            for item in source:
                 if not put(item):
                     return
         except BaseException as e:  # handed to the consumer, which re-raises it
             put(_Failure(e))
             return
+        finally:
+            _close(source)  # here, in this thread, while whatever it reads from is still open
         put(_END)
 
     thread = threading.Thread(target=work, name="redact-decode", daemon=True)
@@ -80,24 +88,35 @@ def map_ahead(fn: Callable[[T], R], items: Iterable[T],
         except Exception as e:  # handed to the caller with its item
             return None, e
 
-    if workers <= 1:
-        for item in items:
-            yield (item, *call(item))
-        return
-    with ThreadPoolExecutor(max_workers=workers, thread_name_prefix="redact-infer") as pool:
-        pending: deque = deque()
-        try:
-            for item in items:
-                pending.append((item, pool.submit(call, item)))
-                if len(pending) >= 2 * workers:
+    source = iter(items)
+    try:
+        if workers <= 1:
+            for item in source:
+                yield (item, *call(item))
+            return
+        with ThreadPoolExecutor(max_workers=workers, thread_name_prefix="redact-infer") as pool:
+            pending: deque = deque()
+            try:
+                for item in source:
+                    pending.append((item, pool.submit(call, item)))
+                    if len(pending) >= 2 * workers:
+                        head, fut = pending.popleft()
+                        yield (head, *fut.result())
+                while pending:
                     head, fut = pending.popleft()
                     yield (head, *fut.result())
-            while pending:
-                head, fut = pending.popleft()
-                yield (head, *fut.result())
-        finally:
-            for _, fut in pending:
-                fut.cancel()
+            finally:
+                for _, fut in pending:
+                    fut.cancel()
+    finally:  # the pool has joined its threads; now stop what feeds it (e.g. a read_ahead thread)
+        _close(source)
+
+
+def _close(iterator) -> None:
+    """Close a generator (running its cleanup: joining threads, closing files); others are left."""
+    close = getattr(iterator, "close", None)
+    if close is not None:
+        close()
 
 
 class WriteBehind:

@@ -19,9 +19,11 @@ PyAV is imported inside the functions that need it, so importing this module is 
 
 from __future__ import annotations
 
+import contextlib
 import hashlib
 import heapq
 import os
+import stat
 import threading
 from collections.abc import Iterator
 from dataclasses import dataclass
@@ -119,15 +121,31 @@ def _video_stream(container):
     return None
 
 
+# What a path that is not a regular file is, in words (stat(2) file types, S_IS* tests).
+_FILE_KINDS = ((stat.S_ISFIFO, "a named pipe (FIFO)"), (stat.S_ISCHR, "a character device"),
+               (stat.S_ISBLK, "a block device"), (stat.S_ISSOCK, "a socket"))
+
+
 def _open_input(path: str | Path):
-    """Open a file for reading, turning every reason it is unusable into one InputError line."""
+    """Open a file for reading, turning every reason it is unusable into one InputError line.
+
+    Only regular files are read: a pipe or a device has no size to hash and check against, and
+    reading one (e.g. /dev/zero) may never end; it is refused before it is opened.
+    """
     av = _av()
     p = Path(path)
-    if not p.exists():
-        raise InputError(f"{p}: no such file")
-    if p.is_dir():
+    try:
+        st = p.stat()
+    except FileNotFoundError:
+        raise InputError(f"{p}: no such file") from None
+    except OSError as e:
+        raise InputError(f"{p}: cannot be read ({e.strerror or e})") from None
+    if stat.S_ISDIR(st.st_mode):
         raise InputError(f"{p}: is a directory, not a video file")
-    if p.stat().st_size == 0:
+    if not stat.S_ISREG(st.st_mode):
+        kind = next((name for test, name in _FILE_KINDS if test(st.st_mode)), "not a regular file")
+        raise InputError(f"{p}: {kind}, not a video file; give a video file saved on disk")
+    if st.st_size == 0:
         raise InputError(f"{p}: empty file (0 bytes), not a video")
     try:
         container = av.open(str(p), mode="r")
@@ -176,7 +194,6 @@ def _count_packets(path: Path) -> int:
 
 def probe(path: str | Path) -> VideoInfo:
     """Describe a video file: size, rate, frame count, rotation, audio; InputError if unusable."""
-    av = _av()
     p = Path(path)
     container, stream = _open_input(p)
     try:
@@ -253,6 +270,27 @@ def _upright_rgb(vf, rotation: int) -> np.ndarray:
     return img
 
 
+def _identity(st: os.stat_result) -> tuple[int, int, int, int, int]:
+    """What must stay the same while a file is read: device, inode, size, modification and
+    status-change times. The kernel sets the status-change time (st_ctime) on every write, truncation
+    or time change (stat(2), inode(7)); a program cannot set it back as it can the modification time."""
+    return (st.st_dev, st.st_ino, st.st_size, st.st_mtime_ns, st.st_ctime_ns)
+
+
+def _what_changed(before: tuple, after: tuple) -> str:
+    if before[:2] != after[:2]:
+        return "it was replaced by another file"
+    if before[2] != after[2]:
+        return f"its size went from {before[2]} to {after[2]} bytes"
+    return "it was written to (its modification or status-change time moved)"
+
+
+def changed_error(path: Path, how: str) -> InputError:
+    """The one message for a source that changed while a run read it."""
+    return InputError(f"{path}: the file changed while it was being read ({how}), so what was decoded may not be "
+                      "what was hashed; nothing was written: run again on a copy that nobody is writing to")
+
+
 class _FileHasher:
     """SHA-256 of the source file, computed by a background thread that reads it sequentially.
 
@@ -264,9 +302,9 @@ class _FileHasher:
     """
 
     def __init__(self, path: Path):
+        self.path = Path(path)
         self._f = open(path, "rb")  # noqa: SIM115 (closed by the thread)
-        st = os.fstat(self._f.fileno())
-        self.identity = (st.st_dev, st.st_ino, st.st_size, st.st_mtime_ns)
+        self.identity = _identity(os.fstat(self._f.fileno()))
         self._stop = threading.Event()
         self._result: tuple[str, int] | None = None
         self._error: BaseException | None = None
@@ -280,12 +318,13 @@ class _FileHasher:
     def _run(self) -> None:
         try:
             hexd, n = sha256_stream(self, CHUNK)  # type: ignore[arg-type]
-            st = os.fstat(self._f.fileno())
+            now = _identity(os.fstat(self._f.fileno()))
             if not self._stop.is_set():
                 self._result = (hexd, n)
-                if n != self.identity[2] or (st.st_size, st.st_mtime_ns) != self.identity[2:]:
-                    self._error = VideoError("the source file changed while it was being read; "
-                                             "run again on a copy that nobody is writing to")
+                if now != self.identity:
+                    self._error = changed_error(self.path, _what_changed(self.identity, now))
+                elif n != self.identity[2]:
+                    self._error = changed_error(self.path, f"{n} bytes read of {self.identity[2]}")
         except BaseException as e:  # noqa: BLE001 (reported to the caller by result())
             self._error = e
         finally:
@@ -298,7 +337,7 @@ class _FileHasher:
     def result(self) -> tuple[str, int]:
         self._thread.join()
         if self._error is not None:
-            if isinstance(self._error, VideoError):
+            if isinstance(self._error, InputError | VideoError):
                 raise self._error
             raise VideoError(f"hashing the source file failed: {self._error}") from self._error
         if self._result is None:
@@ -314,6 +353,15 @@ class VideoReader:
     corrupt file: the frames that decoded were yielded, no exception escapes for bad data).
     A file from which no frame decodes raises InputError. Decoding is multithreaded
     (FFmpeg thread_type AUTO; `threads=0` lets FFmpeg choose the count).
+
+    Refused with an InputError naming the file: timestamps that do not increase (a damaged file:
+    the redacted copy keeps the source's timestamps, which must increase), and a file that changed
+    while it was read (device, inode, size, modification or status-change time differ between the
+    start and the end of decoding, or the hash read fewer bytes than the file had), so the signed
+    SHA-256 is always that of the bytes decoded.
+
+    frames() may run in another thread than close(): each call into the demuxer or decoder holds
+    a lock that close() takes too, so the container is never closed under a running decode.
     """
 
     def __init__(self, path: str | Path, *, threads: int = 0, hash_file: bool = True):
@@ -329,16 +377,23 @@ class VideoReader:
         self._hasher: _FileHasher | None = None
         self._iterated = False
         self._finished = False
+        self.lock = threading.Lock()
+        self.closed = False
+        self.identity: tuple | None = None
 
     def __enter__(self) -> VideoReader:
         self.info = probe(self.path)
-        self._container, self._stream = _open_input(self.path)
         if self._hash_file:
             self._hasher = _FileHasher(self.path)
-            st = os.stat(self.path)
-            if (st.st_dev, st.st_ino) != self._hasher.identity[:2]:
-                self.close()
-                raise VideoError(f"{self.path}: the file was replaced while being opened")
+            self.identity = self._hasher.identity
+        else:
+            self.identity = _identity(os.stat(self.path))
+        self._container, self._stream = _open_input(self.path)
+        try:
+            self.check_unchanged()  # the container opened the same, unchanged file
+        except InputError:
+            self.__exit__(InputError, None, None)
+            raise
         s = self._stream
         s.thread_type = "AUTO"
         s.codec_context.thread_count = self._threads
@@ -350,9 +405,20 @@ class VideoReader:
         self.close()
 
     def close(self) -> None:
-        if self._container is not None:
-            self._container.close()
-            self._container = None
+        with self.lock:  # waits for a decode step running in another thread
+            self.closed = True
+            if self._container is not None:
+                self._container.close()
+                self._container = None
+
+    def check_unchanged(self) -> None:
+        """InputError when the file at the path is no longer the one opened, unchanged."""
+        try:
+            now = _identity(os.stat(self.path))
+        except OSError:
+            raise changed_error(self.path, "it was removed") from None
+        if self.identity is not None and now != self.identity:
+            raise changed_error(self.path, _what_changed(self.identity, now))
 
     def frames(self) -> Iterator[Frame]:
         """Yield every decodable frame in presentation order (once per reader)."""
@@ -362,15 +428,24 @@ class VideoReader:
             raise VideoError("frames() can be iterated only once per VideoReader")
         self._iterated = True
         rotation = self.info.rotation
+        last_pts = None
         for vf, pts, tb, t in _decode(self._container, self._stream, self):
+            if pts is not None and last_pts is not None and pts <= last_pts:
+                raise InputError(f"{self.path}: frame {self.frames_read} has timestamp {pts} after {last_pts} "
+                                 f"(time base {tb}): timestamps must increase, the file is damaged; "
+                                 "re-encode it into a new file first")
+            last_pts = pts if pts is not None else last_pts
             frame = Frame(index=self.frames_read, pts=pts, time_base=tb, t=t,
                           image=_upright_rgb(vf, rotation), digest=native_digest(vf),
                           corrupt=bool(getattr(vf, "is_corrupt", False)))
             self.corrupt_frames += frame.corrupt
             self.frames_read += 1
             yield frame
+        if self.closed:  # closed from another thread: the run is being stopped, nothing to check
+            return
         self._finished = True
         _check_complete(self)
+        self.check_unchanged()
 
     @property
     def sha256(self) -> str:
@@ -385,20 +460,34 @@ class VideoReader:
     def _hash(self) -> tuple[str, int]:
         if self._hasher is None:
             raise VideoError("this VideoReader was opened with hash_file=False")
-        return self._hasher.result()
+        result = self._hasher.result()
+        self.check_unchanged()
+        return result
 
 
 def _decode(container, stream, state) -> Iterator[tuple]:
-    """Yield (av frame, pts, time_base, t seconds); on FFmpeg errors set state.stopped_early and end."""
+    """Yield (av frame, pts, time_base, t seconds); on FFmpeg errors set state.stopped_early and end.
+
+    Each demux and decode step holds state.lock (when the state has one) and ends quietly once
+    state.closed is set, so another thread's close() never runs inside FFmpeg's reading."""
     av = _av()
     start = _stream_start(stream)
     tb = Fraction(stream.time_base)
     fps = state.info.fps
     last_t = 0.0
     n = 0
+    lock = getattr(state, "lock", None) or contextlib.nullcontext()
+    packets = container.demux(stream)
     try:
-        for packet in container.demux(stream):
-            for vf in packet.decode():
+        while True:
+            with lock:
+                if getattr(state, "closed", False):
+                    return
+                packet = next(packets, None)
+                if packet is None:
+                    break
+                decoded = packet.decode()
+            for vf in decoded:
                 pts = vf.pts if vf.pts is not None else vf.dts
                 # Without any timestamp the only clock left is the frame rate (rare: raw streams).
                 t = float((pts - start) * tb) if pts is not None else float(n / fps)
