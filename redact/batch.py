@@ -4,20 +4,26 @@ Layout of the output folder OUT:
 
     OUT/index.json                       what happened to each input (rewritten atomically as inputs finish)
     OUT/<safe relative path>-<sha12>/    one `process_video` output per input: redacted.mp4 + package/
-    OUT/.redact-batch.lock               held (flock) while a batch runs, so two runs never share OUT
+    OUT/.redact.lock                     held (flock) while a batch runs, so two runs never share OUT
+                                         (redact.fsio; removed when the batch ends)
 
 Each input is processed into a hidden staging folder in OUT and renamed to its final name only when
 `process_video` succeeded, so a final folder always holds a complete, signed output. Resuming: an
 input whose SHA-256 already has a complete output (from the index, or its final folder holding a
 package) is skipped; a rerun with other settings is refused (use a new OUT). A failure in one input
 is recorded in the index with a one-line reason and the others continue. An interrupted run
-leaves only hidden `.redact-batch-partial-*` folders, safe to delete when no batch is running.
+leaves only hidden `.redact-batch-partial-*` folders; the next batch into OUT removes those of
+its user that are older than its lock, and mentions any other staging folders it finds. A batch
+that fails before any input ran (e.g. its cluster cannot be reached) leaves no folder it made.
 
 Where the work runs: in this process (workers=1), in local worker processes (workers>1,
 `concurrent.futures.ProcessPoolExecutor` with the spawn start method; each process loads the model
 once and gets cores // workers inference threads), or on a Dask distributed cluster
 (`scheduler="tcp://host:8786"`; optional extra `redact[cluster]`). With Dask, input and OUT paths
 must be the same on every worker (a shared file system). Output folders are created private (0700).
+Before any work the client connects, asks every worker to import redact and say its version, and
+refuses with one line naming the workers that cannot or that run another version; each index
+entry records the tool version that produced it, and the index the version of every worker.
 
 Reproducibility: where an input runs never changes its outputs, but onnxruntime's intra-op thread
 count does (measured: 1, 2, 3 and 4 threads give model outputs differing by up to ~2e-4, enough to
@@ -41,6 +47,7 @@ output's package/review.json lists frames a person must review before any disclo
 
 from __future__ import annotations
 
+import contextlib
 import os
 import re
 import shutil
@@ -52,7 +59,7 @@ from concurrent.futures import ProcessPoolExecutor, as_completed
 from dataclasses import dataclass, field, replace
 from pathlib import Path
 
-from redact import __version__, jsonio
+from redact import __version__, fsio, jsonio
 from redact.errors import InputError, OutputError, RedactError, SigningKeyError
 from redact.hashing import sha256_file
 from redact.pipeline import PACKAGE_NAME, ProcessSettings, process_video
@@ -67,7 +74,7 @@ VIDEO_EXTENSIONS = frozenset({
 })
 INDEX_NAME = "index.json"
 INDEX_FORMAT = "redact-batch-index/v1"
-LOCK_NAME = ".redact-batch.lock"
+LOCK_NAME = fsio.LOCK_NAME
 STAGING_PREFIX = ".redact-batch-partial-"
 PASSPHRASE_ENV = "REDACT_KEY_PASSPHRASE"  # the same variable the CLI reads (redact.cli.cmd_keys)
 STATUS_DONE = "done"
@@ -159,13 +166,14 @@ class BatchEntry:
     seconds: float | None = None
     error: str | None = None
     threads: int | None = None
+    tool_version: str | None = None  # the redact that made (or tried to make) this output
 
     def to_json(self) -> dict:
         return {"input": self.input, "sha256": self.sha256, "bytes": self.bytes, "status": self.status,
                 "output": self.output, "frames": self.frames, "key_id": self.key_id,
                 "review_ranges": self.review_ranges,
                 "seconds": None if self.seconds is None else round(self.seconds, 3), "error": self.error,
-                "threads": self.threads}
+                "threads": self.threads, "tool_version": self.tool_version}
 
 
 @dataclass(frozen=True)
@@ -175,6 +183,8 @@ class BatchResult:
     out_dir: Path
     index: Path
     entries: tuple[BatchEntry, ...]
+    notices: tuple[str, ...] = ()  # one line each for the operator (e.g. stale staging folders removed)
+    workers: dict[str, str] | None = None  # Dask worker address → its redact version
 
     def with_status(self, status: str) -> list[BatchEntry]:
         return [e for e in self.entries if e.status == status]
@@ -225,12 +235,14 @@ def process_job(job: _Job, settings: ProcessSettings, signer: Signer, estimator=
         result = process_video(job.source, staging, signer, settings, estimator=estimator)
         if result.source_sha256 != job.sha256:
             raise InputError("the file changed while the batch ran (SHA-256 differs); rerun the batch")
-        os.rename(staging, final)
+        fsio.rename_new(staging, final)  # never over a folder that appeared meanwhile
         staging = None
         return {"status": STATUS_DONE, "output": job.name, "frames": result.frames, "key_id": result.key_id,
-                "review_ranges": len(result.review), "seconds": time.perf_counter() - started, "threads": threads}
+                "review_ranges": len(result.review), "seconds": time.perf_counter() - started, "threads": threads,
+                "tool_version": __version__}
     except Exception as e:  # one bad input must not stop the batch; the reason goes into the index
-        return {"status": STATUS_FAILED, "error": _one_line(e), "seconds": time.perf_counter() - started}
+        return {"status": STATUS_FAILED, "error": _one_line(e), "seconds": time.perf_counter() - started,
+                "tool_version": __version__}
     finally:
         if staging is not None:
             shutil.rmtree(staging, ignore_errors=True)
@@ -256,6 +268,7 @@ def _local_task(job: _Job) -> dict:
 
 # ---- Dask distributed -------------------------------------------------------------------------
 
+CONNECT_TIMEOUT = "20s"  # how long to try to reach the scheduler (common practice for a LAN)
 _CLUSTER_LOCK = threading.Lock()
 _CLUSTER_CACHE: dict = {}
 
@@ -286,7 +299,7 @@ def cluster_task(job: _Job, settings: ProcessSettings, key: BatchKey, threads_by
                 _CLUSTER_CACHE[cache_key] = (key.signer(), PoseEstimator.default(settings.pose, threads))
             signer, estimator = _CLUSTER_CACHE[cache_key]
     except Exception as e:  # e.g. no passphrase on this worker: recorded for this input, the rest go on
-        return {"status": STATUS_FAILED, "error": _one_line(e), "seconds": 0.0}
+        return {"status": STATUS_FAILED, "error": _one_line(e), "seconds": 0.0, "tool_version": __version__}
     return process_job(job, replace(settings, threads=threads), signer, estimator)
 
 
@@ -300,28 +313,65 @@ def _threads_by_worker(client) -> dict[str, int]:
     return {addr: max(1, int(cores.get(addr, 1)) // max(1, slots.get(w["host"], 1))) for addr, w in workers.items()}
 
 
-def _run_cluster(address: str, jobs: list[_Job], settings: ProcessSettings, key: BatchKey,
-                 done: Callable[[_Job, dict], None]) -> None:
+def connect_cluster(address: str):
+    """A Dask client for `address` whose every worker runs this version of redact; InputError (one
+    line) when Dask is missing, the scheduler cannot be reached, it has no workers, or a worker has
+    no redact or another version. Returns (client, {worker address: redact version})."""
     try:
         from dask.distributed import Client
-        from dask.distributed import as_completed as dask_completed
     except ImportError:
-        raise InputError("--scheduler needs Dask: install the optional extra with `pip install 'redact[cluster]'`") from None
+        raise InputError("--scheduler needs Dask: install the optional extra with "
+                         "`pip install 'redact[cluster]'`") from None
     try:
-        client = Client(address, timeout="20s")
+        client = Client(address, timeout=CONNECT_TIMEOUT)
     except (OSError, TimeoutError, ValueError) as e:
         raise InputError(f"cannot connect to the Dask scheduler at {address}: {_one_line(e)}") from None
-    with client:
-        plan = _threads_by_worker(client)
-        remote_key = key.for_cluster()
-        futures = {client.submit(cluster_task, job, settings, remote_key, plan, pure=False,
-                                 key=f"redact-batch-{job.sha256[:16]}-{i}"): job for i, job in enumerate(jobs)}
-        for fut in dask_completed(futures):
-            try:
-                fields = fut.result()
-            except Exception as e:  # a worker died or the task could not run there
-                fields = {"status": STATUS_FAILED, "error": _one_line(e)}
-            done(futures[fut], fields)
+    try:
+        versions = worker_versions(client)
+    except BaseException:
+        client.close()
+        raise
+    return client, versions
+
+
+#: What each worker is asked before any work: import the module its tasks come from and say its
+#: version. It travels as a string for the built-in eval, because a function of ours would not even
+#: unpickle on a worker without redact (that is what gave a 62-line traceback); a constant, never
+#: anything a user typed.
+_VERSION_QUESTION = "__import__('redact.batch', fromlist=['__version__']).__version__"
+
+
+def worker_versions(client) -> dict[str, str]:
+    """{worker address: redact version} of every worker; InputError naming the workers that cannot
+    import redact (with the reason) or run another version than this client."""
+    answers = client.run(eval, _VERSION_QUESTION, on_error="return")
+    if not answers:
+        raise InputError("the Dask scheduler has no workers; start `dask worker ADDRESS` on each machine first")
+    broken = sorted(f"{a} ({_one_line(v)})" for a, v in answers.items() if isinstance(v, BaseException))
+    if broken:
+        raise InputError(f"redact cannot be used on Dask worker(s) {', '.join(broken)}: install redact {__version__} "
+                         "there (the same version as here) and restart the workers")
+    other = sorted(f"{a} has {v}" for a, v in answers.items() if v != __version__)
+    if other:
+        raise InputError(f"Dask workers run another redact version than this client ({__version__}): "
+                         f"{'; '.join(other)}; install the same version everywhere")
+    return {a: str(v) for a, v in answers.items()}
+
+
+def _run_cluster(client, jobs: list[_Job], settings: ProcessSettings, key: BatchKey,
+                 done: Callable[[_Job, dict], None]) -> None:
+    from dask.distributed import as_completed as dask_completed
+
+    plan = _threads_by_worker(client)
+    remote_key = key.for_cluster()
+    futures = {client.submit(cluster_task, job, settings, remote_key, plan, pure=False,
+                             key=f"redact-batch-{job.sha256[:16]}-{i}"): job for i, job in enumerate(jobs)}
+    for fut in dask_completed(futures):
+        try:
+            fields = fut.result()
+        except Exception as e:  # a worker died or the task could not run there
+            fields = {"status": STATUS_FAILED, "error": _one_line(e)}
+        done(futures[fut], fields)
 
 
 # ---- the batch ---------------------------------------------------------------------------------
@@ -352,28 +402,14 @@ def _read_prior(index: Path, settings_record: dict) -> dict[str, dict]:
     return prior
 
 
-def _write_index(index: Path, settings_record: dict, key_id: str, entries: list[BatchEntry], complete: bool) -> None:
+def _write_index(index: Path, settings_record: dict, key_id: str, entries: list[BatchEntry], complete: bool,
+                 workers: dict[str, str] | None = None) -> None:
     doc = {"format": INDEX_FORMAT, "tool": {"name": "redact", "version": __version__}, "updated": utc_now(),
            "complete": complete, "key_id": key_id, "settings": settings_record,
            "inputs": [e.to_json() for e in sorted(entries, key=lambda e: e.input)]}
-    tmp = index.with_name(f".{index.name}.tmp-{os.getpid()}")
-    tmp.write_bytes(jsonio.dumps(doc) + b"\n")
-    os.replace(tmp, index)
-
-
-def _lock(out_dir: Path):
-    """An exclusive advisory lock on OUT (released by the OS even if this process dies)."""
-    try:
-        import fcntl
-    except ImportError:  # not on POSIX: no lock
-        return None
-    f = open(out_dir / LOCK_NAME, "a+b")
-    try:
-        fcntl.flock(f.fileno(), fcntl.LOCK_EX | fcntl.LOCK_NB)
-    except OSError:
-        f.close()
-        raise OutputError(f"another batch is writing to {out_dir}; wait for it or choose another --out") from None
-    return f
+    if workers is not None:
+        doc["workers"] = [{"address": a, "tool_version": v} for a, v in sorted(workers.items())]
+    fsio.atomic_write(index, jsonio.dumps(doc) + b"\n", replace=True)
 
 
 def run_batch(input_dir: str | Path, out_dir: str | Path, key: BatchKey | Signer,
@@ -396,19 +432,39 @@ def run_batch(input_dir: str | Path, out_dir: str | Path, key: BatchKey | Signer
     videos = find_videos(input_dir, exclude=[out_dir])
     if not videos:
         raise InputError(f"no video files under {input_dir} (extensions: {' '.join(sorted(VIDEO_EXTENSIONS))})")
+    client, versions = connect_cluster(scheduler) if scheduler else (None, None)  # before OUT exists
     try:
-        out_dir.mkdir(parents=True, exist_ok=True)
+        created = _make_folder(out_dir)
+        try:
+            with fsio.lock_folder(out_dir) as lock:  # a second batch into OUT stops here
+                notices = fsio.staging_notices(out_dir, *fsio.stale_staging(out_dir, STAGING_PREFIX,
+                                                                            lock.acquired_at))
+                result = _batch(input_dir, out_dir, videos, key, settings, workers, client, versions, progress)
+        except BaseException:
+            if created:
+                with contextlib.suppress(OSError):
+                    out_dir.rmdir()  # only when empty: nothing ran
+            raise
+    finally:
+        if client is not None:
+            client.close()
+    return replace(result, notices=notices, workers=versions)
+
+
+def _make_folder(out_dir: Path) -> bool:
+    """Create OUT (and its parents); True when this call created it."""
+    try:
+        out_dir.mkdir(parents=True)
+        return True
+    except FileExistsError:
+        if not out_dir.is_dir():
+            raise OutputError(f"--out {out_dir} exists and is not a folder") from None
+        return False
     except OSError as e:
         raise OutputError(f"cannot create {out_dir}: {e.strerror or e}") from None
-    lock = _lock(out_dir)
-    try:
-        return _batch(input_dir, out_dir, videos, key, settings, workers, scheduler, progress)
-    finally:
-        if lock is not None:
-            lock.close()
 
 
-def _batch(input_dir, out_dir, videos, key, settings, workers, scheduler, progress) -> BatchResult:
+def _batch(input_dir, out_dir, videos, key, settings, workers, client, versions, progress) -> BatchResult:
     index = out_dir / INDEX_NAME
     record = jsonio.loads(jsonio.dumps(settings.record()), "settings")  # as the index stores it
     prior = _read_prior(index, record)
@@ -420,7 +476,7 @@ def _batch(input_dir, out_dir, videos, key, settings, workers, scheduler, progre
 
     def finish(entry: BatchEntry) -> None:
         entries.append(entry)
-        _write_index(index, record, key.key_id, entries, complete=False)
+        _write_index(index, record, key.key_id, entries, complete=False, workers=versions)
         if progress is not None:
             progress(entry, len(entries), total)
 
@@ -435,7 +491,7 @@ def _batch(input_dir, out_dir, videos, key, settings, workers, scheduler, progre
         old = prior.get(sha)
         if old is not None and _has_package(out_dir / old["output"]):
             finish(BatchEntry(rel, sha, size, STATUS_SKIPPED, old["output"], old.get("frames"), old.get("key_id"),
-                              old.get("review_ranges")))
+                              old.get("review_ranges"), tool_version=old.get("tool_version")))
         elif sha in claimed:
             same.append((rel, sha, size))
         elif _has_package(out_dir / name):
@@ -447,10 +503,11 @@ def _batch(input_dir, out_dir, videos, key, settings, workers, scheduler, progre
     def done(job: _Job, fields: dict) -> None:
         finish(BatchEntry(job.relative, job.sha256, job.bytes, fields["status"], fields.get("output"),
                           fields.get("frames"), fields.get("key_id"), fields.get("review_ranges"),
-                          fields.get("seconds"), fields.get("error"), fields.get("threads")))
+                          fields.get("seconds"), fields.get("error"), fields.get("threads"),
+                          fields.get("tool_version")))
 
-    if jobs and scheduler:
-        _run_cluster(scheduler, jobs, settings, key, done)
+    if jobs and client is not None:
+        _run_cluster(client, jobs, settings, key, done)
     elif jobs and workers > 1:
         _run_local(jobs, settings, key, workers, done)
     elif jobs:
@@ -462,8 +519,8 @@ def _batch(input_dir, out_dir, videos, key, settings, workers, scheduler, progre
             finish(BatchEntry(rel, sha, size, STATUS_FAILED, error=f"same content as {first.input}: {first.error}"))
         else:
             finish(BatchEntry(rel, sha, size, STATUS_SKIPPED, first.output, first.frames, first.key_id,
-                              first.review_ranges))
-    _write_index(index, record, key.key_id, entries, complete=True)
+                              first.review_ranges, tool_version=first.tool_version))
+    _write_index(index, record, key.key_id, entries, complete=True, workers=versions)
     return BatchResult(out_dir, index, tuple(sorted(entries, key=lambda e: e.input)))
 
 

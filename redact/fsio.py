@@ -199,6 +199,8 @@ class OutputLock:
         while True:
             try:
                 fd = os.open(self.path, os.O_RDWR | os.O_CREAT | getattr(os, "O_CLOEXEC", 0), 0o600)
+            except FileNotFoundError:
+                raise OutputError(f"directory {self.path.parent} does not exist") from None
             except OSError as e:
                 raise write_error(self.path, e) from None
             try:

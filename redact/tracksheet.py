@@ -15,6 +15,7 @@ middle and last observed frame; images are RGB uint8 [H, W, 3] until written as 
 
 from __future__ import annotations
 
+import hashlib
 import json
 import os
 import shutil
@@ -24,6 +25,7 @@ from pathlib import Path
 
 import numpy as np
 
+from redact import fsio
 from redact.errors import OutputError
 from redact.pipeline import ProcessSettings, inference_workers
 from redact.redaction.plan import PLAN_VERSION, ids_fingerprint
@@ -150,6 +152,12 @@ def _crop_pass(source: Path, wanted: dict[int, list[tuple[int, np.ndarray]]]) ->
     return crops
 
 
+#: A sheet is staged beside its folder in `.redact-tracks-partial-<16 hex of SHA-256 of its name>-*`;
+#: ones left by runs that did not finish are removed by the next run for the same folder (they
+#: hold unredacted pictures). The hash keeps one folder's prefix from being the start of another's.
+STAGING_PREFIX = ".redact-tracks-partial-"
+
+
 def make_track_sheet(source: str | Path, out_dir: str | Path, settings: ProcessSettings = ProcessSettings(),
                      estimator=None) -> list[dict]:
     """Write a track sheet for `source` into the new folder out_dir; returns its track list.
@@ -170,18 +178,26 @@ def make_track_sheet(source: str | Path, out_dir: str | Path, settings: ProcessS
     if estimator is None:
         estimator = PoseEstimator.default(settings.pose, settings.model_threads)
     parent = out_dir.parent
+    prefix = f"{STAGING_PREFIX}{hashlib.sha256(os.fsencode(out_dir.name)).hexdigest()[:16]}-"
     try:
         parent.mkdir(parents=True, exist_ok=True)
-        staging = Path(tempfile.mkdtemp(prefix=".redact-tracks-partial-", dir=parent))  # mode 0700
     except OSError as e:
-        raise OutputError(f"cannot write to {parent}: {e.strerror or e}") from None
-    try:
-        items = _write_sheet(source, info, staging, settings, estimator, entry.sha256)
+        raise fsio.write_error(parent, e) from None
+    with fsio.lock_target(out_dir) as lock:  # a second sheet into the same folder stops here
         if os.path.lexists(out_dir):
-            raise OutputError(f"{out_dir} appeared while writing; refusing to overwrite it")
-        os.rename(staging, out_dir)
-    finally:
-        shutil.rmtree(staging, ignore_errors=True)
+            raise OutputError(f"{out_dir} already exists; choose a new --out (a track sheet is never overwritten)")
+        fsio.stale_staging(parent, prefix, lock.acquired_at)  # sheets of runs that never finished: sensitive
+        try:
+            staging = Path(tempfile.mkdtemp(prefix=prefix, dir=parent))  # mode 0700
+        except OSError as e:
+            raise fsio.write_error(parent, e) from None
+        try:
+            items = _write_sheet(source, info, staging, settings, estimator, entry.sha256)
+            fsio.rename_new(staging, out_dir)  # never over a folder that appeared meanwhile
+        except OSError as e:
+            raise fsio.write_error(out_dir, e) from None
+        finally:
+            shutil.rmtree(staging, ignore_errors=True)
     return items
 
 

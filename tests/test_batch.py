@@ -20,6 +20,7 @@ from click.testing import CliRunner
 from conftest import crossing_spec, make_clip
 
 import redact.batch as batch
+from redact import __version__
 from redact.batch import STATUS_DONE, STATUS_FAILED, STATUS_SKIPPED, BatchKey, find_videos, output_name, run_batch
 from redact.cli import main
 from redact.errors import InputError, SigningKeyError
@@ -218,8 +219,12 @@ def test_dask_local_cluster_gives_the_same_bytes(tree, single, tmp_path, monkeyp
     monkeypatch.setenv(batch.PASSPHRASE_ENV, PASSPHRASE)  # the workers inherit it; it never travels
     with LocalCluster(n_workers=2, threads_per_worker=1, processes=True, dashboard_address=None) as cluster:
         result = run_batch(tree["src"], tmp_path / "dask", tree["key"], SETTINGS, scheduler=cluster.scheduler_address)
+        addresses = sorted(cluster.scheduler_info["workers"])
     assert _by_input(result)[BAD].status == STATUS_FAILED
     _assert_same_outputs(single[0], result)
+    index = json.loads(result.index.read_text())  # every worker's tool version, and each entry's
+    assert index["workers"] == [{"address": a, "tool_version": __version__} for a in addresses]
+    assert {e["tool_version"] for e in index["inputs"]} == {__version__}
 
 
 def test_dask_workers_without_the_passphrase_fail_each_input_clearly(tree, tmp_path, monkeypatch):

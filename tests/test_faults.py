@@ -300,3 +300,51 @@ def test_no_space_error_names_both_sizes():
     e = NoSpaceError("/data/out", needed=123_456_789, free=2_000_000)
     assert str(e).startswith("no space left in /data/out: this run needs about 123 MB (2.0 MB were free when")
 
+
+
+# ---- every command that writes takes its output's lock first ------------------------------------
+
+@pytest.fixture(scope="module")
+def made(crossing_clip, tmp_path_factory):
+    """One processed package, signed with a key on disk (the trusted key for the other commands)."""
+    from redact.provenance.signing import generate_key, load_private_key
+
+    root = tmp_path_factory.mktemp("made")
+    generate_key(root / "k.private.pem", root / "k.public.pem", b"made passphrase")
+    signer = load_private_key(root / "k.private.pem", b"made passphrase")
+    est = PoseEstimator.default(FAST.pose, 1)
+    result = process_video(crossing_clip.path, root / "out", signer, FAST, estimator=est)
+    return {"root": root, "package": result.package, "video": result.video, "clip": crossing_clip.path,
+            "private": root / "k.private.pem", "public": root / "k.public.pem"}
+
+
+def _commands(made, target: Path) -> dict[str, list[str]]:
+    pkg, pub = str(made["package"]), str(made["public"])
+    return {
+        "report": ["report", pkg, "--key", pub, "-o", str(target)],
+        "export": ["export", pkg, "--key", pub, "--format", "npz", "--out", str(target)],
+        "derive": ["derive", pkg, "--key", pub, "--sign-key", str(made["private"]), "--out", str(target),
+                   "--drop-keypoints", "head"],
+        "tracks": ["tracks", str(made["clip"]), "--out", str(target), "--input-size", "320", "--threads", "1"],
+        "process": ["process", str(made["clip"]), "--out", str(target), "--key", str(made["private"]),
+                    "--input-size", "320", "--threads", "1", "--quiet"],
+    }
+
+
+@pytest.mark.parametrize("command", ["report", "export", "derive", "tracks", "process"])
+def test_a_command_whose_output_is_being_written_stops_at_once(made, tmp_path, command):
+    target = tmp_path / ("out-" + command)
+    if command == "process":
+        target.mkdir()
+        lock = fsio.lock_folder(target).acquire()  # another run writing into OUT
+    else:
+        lock = fsio.lock_target(target).acquire()  # another run writing this new name
+    try:
+        r = CliRunner().invoke(main, _commands(made, target)[command],
+                               env={"REDACT_KEY_PASSPHRASE": "made passphrase"})
+    finally:
+        lock.release()
+    assert r.exit_code == 2, r.output
+    assert "another redact run is writing" in _one_error_line(r)
+    assert _entries(tmp_path) == (["out-process"] if command == "process" else [])
+    assert _entries(target) == []

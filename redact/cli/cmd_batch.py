@@ -18,7 +18,7 @@ from redact.cli.options import pipeline_options
 def _summary(result) -> dict:
     counts = {s: len(result.with_status(s)) for s in ("done", "skipped-already-done", "failed")}
     return {"out": str(result.out_dir), "index": str(result.index), "inputs": len(result.entries),
-            "counts": counts, "entries": [e.to_json() for e in result.entries]}
+            "counts": counts, "entries": [e.to_json() for e in result.entries], "workers": result.workers}
 
 
 def _progress(quiet: bool):
@@ -80,6 +80,8 @@ def batch(input_dir: Path, out: Path, signing_key: Path, workers: int, scheduler
         click.echo(f"note: Dask workers read the passphrase from their own ${PASSPHRASE_ENV}", err=True)
     result = run_batch(input_dir, out, batch_key, settings, workers=workers, scheduler=scheduler,
                        progress=_progress(quiet or as_json))
+    for line in result.notices:
+        click.echo(f"note: {line}", err=True)
     s = _summary(result)
     if as_json:
         echo_json(s)

@@ -53,9 +53,15 @@ def derive_cmd(package: Path, trusted_keys: tuple[Path, ...], signing_key: Path,
 
     if privacy is None:
         raise InputError("no de-identification option given; choose at least one (see --help)")
+    from redact import fsio
+
     trusted = load_trusted_keys(trusted_keys)
     signer = load_private_key(check_signing_key(signing_key), read_passphrase(confirm=False))
-    result = derive(package, out, trusted, signer, privacy, disclosure, archive=archive)
+    with fsio.lock_target(out) as lock:  # a second derive to the same name stops here
+        stale, _ = fsio.stale_staging(out.parent, f".{out.name}.derive-partial-", lock.acquired_at)
+        result = derive(package, out, trusted, signer, privacy, disclosure, archive=archive)
+    for line in fsio.staging_notices(out.parent, stale, []):
+        click.echo(f"note: {line}", err=True)
     click.echo(f"caution: {PRIVACY_CAUTION}", err=True)
     if as_json:
         echo_json({"package": str(result.path), "key_id": result.key_id,

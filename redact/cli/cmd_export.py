@@ -63,9 +63,12 @@ def export_cmd(package: Path, trusted_keys: tuple[Path, ...], fmt: str, out: Pat
 
     if fmt == "npz" and (gt_out is not None or frame_size is not None):
         raise InputError("--gt-out and --frame-size only apply to --format coco")
+    from redact.fsio import lock_target
+
     trusted = load_trusted_keys(trusted_keys)
-    summary = export_package(package, fmt, out, gt_out=gt_out, frame_size=frame_size, force=force,
-                             trusted_keys=trusted or None)
+    with lock_target(out):  # a second export to the same file stops here
+        summary = export_package(package, fmt, out, gt_out=gt_out, frame_size=frame_size, force=force,
+                                 trusted_keys=trusted or None)
     if not trusted:
         click.echo("note: the package was not verified (use --trusted-key NAME.public.pem)", err=True)
     click.echo(f"caution: {EXPORT_CAUTION}", err=True)

@@ -49,19 +49,14 @@ audit path; it reveals nothing about other frames beyond their hashes.""")
 def frame_proof(package: Path, trusted_keys: tuple[Path, ...], frame: int, out: Path, as_json: bool) -> None:
     """Write an RFC 6962 inclusion proof that frame N belongs to the package's signed source."""
     from redact.errors import OutputError
+    from redact.fsio import atomic_write
     from redact.provenance import merkle
 
     result, digests = _verified_frames(package, trusted_keys)
     proof = merkle.make_frame_proof(digests, frame, result.predicate.source.sha256)
     if os.path.lexists(out):
         raise OutputError(f"{out} already exists; refusing to overwrite it")
-    tmp = out.with_name(f".{out.name}.tmp-{os.getpid()}")
-    try:
-        with open(tmp, "xb") as f:
-            f.write(proof.to_json())
-        os.replace(tmp, out)
-    except OSError as e:
-        raise OutputError(f"cannot write {out}: {e.strerror or e}") from None
+    atomic_write(out, proof.to_json())  # never replaces a file that appeared meanwhile
     if as_json:
         echo_json({"proof": str(out), "frame": frame, "tree_size": proof.size, "root": proof.root.hex(),
                    "key_id": result.key_id})

@@ -12,6 +12,7 @@ from redact.cli import main
 from redact.cli.common import echo_json, library_errors
 from redact.cli.keyfiles import load_trusted_keys, trusted_keys_option
 from redact.errors import OutputError
+from redact.fsio import atomic_write, lock_target
 
 
 def _check_output(out: Path, force: bool) -> None:
@@ -25,20 +26,10 @@ def _check_output(out: Path, force: bool) -> None:
 
 
 def _write_atomic(out: Path, data: bytes, force: bool) -> None:
-    """Write to a hidden temporary name beside `out`, then rename: no partial report is left."""
+    """Write to a hidden temporary name beside `out`, then rename: no partial report is left, and
+    an existing file is replaced only with --force."""
     _check_output(out, force)
-    tmp = out.with_name(f".{out.name}.tmp-{os.getpid()}")
-    try:
-        with open(tmp, "xb") as f:
-            f.write(data)
-            f.flush()
-            os.fsync(f.fileno())
-        os.replace(tmp, out)
-    except OSError as e:
-        raise OutputError(f"cannot write {out}: {e.strerror or e}") from None
-    finally:
-        if os.path.lexists(tmp):
-            os.unlink(tmp)
+    atomic_write(out, data, replace=force)
 
 
 @main.command("report", epilog="""\b
@@ -77,8 +68,9 @@ def report(package: Path, trusted_keys: tuple[Path, ...], video: Path | None, so
             raise OutputError(f"--out {output} would overwrite an input")
     _check_output(output, force)
     trusted = load_trusted_keys(trusted_keys)
-    result = make_report(package, trusted, video=video, source=source)
-    _write_atomic(output, result.html, force)
+    with lock_target(output):  # a second report to the same file stops here
+        result = make_report(package, trusted, video=video, source=source)
+        _write_atomic(output, result.html, force)
     if as_json:
         echo_json({"report": str(output), "verified": result.verified, "key_id": result.key_id,
                    "findings": list(result.findings), "pictures": result.thumbnails})

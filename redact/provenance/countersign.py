@@ -25,7 +25,7 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import BinaryIO
 
-from redact import jsonio
+from redact import fsio, jsonio
 from redact.errors import OutputError, PackageError
 from redact.provenance import signing
 from redact.provenance.package import ENVELOPE, ENVELOPE_LIMIT, _write_tar, open_package
@@ -133,9 +133,7 @@ def _write_folder(path: Path, envelope: bytes, out: Path | None, before: str) ->
                 with reader.open(name) as src, open(dst, "xb") as f:
                     shutil.copyfileobj(src, f)
         _write_file(tmp / ENVELOPE, envelope)
-        if os.path.lexists(out):
-            raise OutputError(f"{out} appeared while writing; refusing to overwrite it")
-        os.rename(tmp, out)
+        fsio.rename_new(tmp, out)  # fails when `out` appeared meanwhile: never overwrite
     except OSError as e:
         raise OutputError(f"cannot write {out}: {e.strerror or e}") from None
     finally:

@@ -22,7 +22,7 @@ from contextlib import contextmanager
 from pathlib import Path
 from typing import BinaryIO
 
-from redact import jsonio
+from redact import fsio, jsonio
 from redact.errors import OutputError, PackageError
 from redact.hashing import sha256_file, sha256_stream
 from redact.provenance import merkle, signing
@@ -336,44 +336,17 @@ def write_package(staging_dir: Path, final_path: Path, predicate: Predicate, sig
         subjects.append(Subject(video_name, digest, size, ROLE_VIDEO))
     payload = Statement(tuple(subjects), predicate.signed(LogRecord(log.head, log.entries))).encode()
     envelope = signing.sign_envelope(payload, signing.PAYLOAD_TYPE, signer)
-    _atomic_write(staging / ENVELOPE, signing.envelope_bytes(envelope))
+    fsio.atomic_write(staging / ENVELOPE, signing.envelope_bytes(envelope), replace=True)
 
     if archive:
         names = sorted(set(reader.files) | {ENVELOPE})
         sizes = {n: (staging / n).stat().st_size for n in names}
-        tmp = final.with_name(f".{final.name}.tmp-{os.getpid()}")
-        try:
-            with open(tmp, "xb") as out:
-                _write_tar(out, [(n, sizes[n], (lambda n=n: open(staging / n, "rb"))) for n in names])
-                out.flush()
-                os.fsync(out.fileno())
-            _rename_new(tmp, final)
-        finally:
-            if os.path.lexists(tmp):
-                os.unlink(tmp)
+        with fsio.atomic_file(final) as out:  # never replaces an existing file
+            _write_tar(out, [(n, sizes[n], (lambda n=n: open(staging / n, "rb"))) for n in names])
         shutil.rmtree(staging)
     else:
-        _rename_new(staging, final)
+        fsio.rename_new(staging, final)
     return payload
-
-
-def _atomic_write(path: Path, data: bytes) -> None:
-    tmp = path.with_name(f".{path.name}.tmp-{os.getpid()}")
-    with open(tmp, "xb") as f:
-        f.write(data)
-        f.flush()
-        os.fsync(f.fileno())
-    os.replace(tmp, path)
-
-
-def _rename_new(src: Path, dst: Path) -> None:
-    if os.path.lexists(dst):
-        raise OutputError(f"{dst} appeared while writing; refusing to overwrite it")
-    try:
-        os.rename(src, dst)
-    except OSError as e:
-        raise OutputError(f"cannot move the package into place at {dst}: {e.strerror or e} "
-                          "(the staging directory must be on the same file system)") from None
 
 
 def read_statement_unverified(reader: PackageReader) -> tuple[Statement, str | None]:

@@ -44,7 +44,7 @@ from collections.abc import Iterable
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from redact import jsonio
+from redact import fsio, jsonio
 from redact.errors import OutputError, SigningKeyError, VerificationFailed
 
 PAYLOAD_TYPE = "application/vnd.in-toto+json"  # in-toto attestation spec v1, DSSE binding
@@ -188,17 +188,8 @@ def _read_key_file(path: Path) -> bytes:
 
 
 def _write_new(path: Path, data: bytes, mode: int) -> None:
-    """Write a new file through a temporary name; the final name must not exist."""
-    tmp = path.with_name(f".{path.name}.tmp-{os.getpid()}")
-    fd = os.open(tmp, os.O_WRONLY | os.O_CREAT | os.O_EXCL, mode)
-    try:
-        with os.fdopen(fd, "wb") as f:
-            f.write(data)
-            f.flush()
-            os.fsync(f.fileno())
-        os.link(tmp, path)  # fails if `path` appeared meanwhile: never overwrite a key
-    finally:
-        os.unlink(tmp)
+    """Write a new file through a temporary name; the final name must not exist (never overwrite a key)."""
+    fsio.atomic_write(path, data, mode=mode)
 
 
 def generate_key(private_path: Path, public_path: Path, passphrase: bytes) -> str:

@@ -27,7 +27,7 @@ from collections.abc import Sequence
 from dataclasses import dataclass, replace
 from pathlib import Path
 
-from redact import __version__
+from redact import __version__, fsio
 from redact.errors import InputError, OutputError, PackageError
 from redact.formats import quality_jsonl, review_json, skeletons_jsonl, tracks_json
 from redact.formats.tracks_json import TrackRecord
@@ -57,15 +57,9 @@ def _first_time_and_units(path: Path) -> float | None:
 
 
 def _write_via_temp(path: Path, chunks) -> None:
-    tmp = path.with_name(f".{path.name}.tmp-{os.getpid()}")
-    try:
-        with open(tmp, "wb") as out:
-            for c in chunks:
-                out.write(c)
-        os.replace(tmp, path)
-    finally:
-        if os.path.lexists(tmp):
-            os.unlink(tmp)
+    with fsio.atomic_file(path, replace=True) as out:
+        for c in chunks:
+            out.write(c)
 
 
 def _rows_pass(path: Path) -> tuple[list[TrackRecord], int]:

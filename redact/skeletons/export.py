@@ -24,14 +24,13 @@ COCO keypoints are pixels: rows in frame or track units are refused for this for
 from __future__ import annotations
 
 import json
-import os
-import secrets
 from collections.abc import Iterable, Iterator, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
 
+from redact import fsio
 from redact.errors import InputError, OutputError, PackageError, VerificationFailed
 from redact.formats import skeletons_jsonl
 from redact.provenance.contents import PackageContents
@@ -131,10 +130,6 @@ def _rows(lines: Iterable[bytes]) -> Iterator[_Row]:
                    centres)
 
 
-def _temp_for(out: Path) -> Path:
-    return out.with_name(f".{out.name}.tmp-{secrets.token_hex(4)}")
-
-
 def _check_out(out: Path, force: bool) -> None:
     if out.exists() and not force:
         raise OutputError(f"{out}: already exists; choose another name or allow overwriting")
@@ -187,14 +182,8 @@ def export_npz(lines: Iterable[bytes], out: str | Path, force: bool = False) -> 
         arrays[f"track_{tid}_observed"] = np.array(d["observed"], bool)
         if d["centre"]:
             arrays[f"track_{tid}_centre"] = np.array(d["centre"], np.float32).reshape(-1, 2)
-    tmp = _temp_for(out)
-    try:
-        with open(tmp, "wb") as f:  # a file object, so numpy does not append ".npz" to the name
-            np.savez_compressed(f, **arrays)
-        os.replace(tmp, out)
-    except BaseException:
-        tmp.unlink(missing_ok=True)
-        raise
+    with fsio.atomic_file(out, replace=force) as f:  # a file object, so numpy does not append ".npz"
+        np.savez_compressed(f, **arrays)
     return {"format": "npz", "out": str(out), "rows": len(frames), "tracks": len(per),
             "person_frames": person_frames, "units": units}
 
@@ -221,37 +210,35 @@ def export_coco(lines: Iterable[bytes], out: str | Path, gt_out: str | Path | No
         raise OutputError("the results and ground-truth files must differ")
     _check_out(out, force)
     _check_out(gt_out, force)
-    tmp, tmp_gt = _temp_for(out), _temp_for(gt_out)
     n_rows = n_people = 0
-    try:
-        with open(tmp, "w", encoding="utf-8", newline="\n") as f, \
-                open(tmp_gt, "w", encoding="utf-8", newline="\n") as g:
-            f.write("[")
-            g.write('{"info":{"description":"images of a skeleton package (no pixels); '
-                    'pseudonymised personal data"},"images":[')
-            for r in _rows(lines):
-                if r.units != "pixels":
-                    raise InputError(f"format: COCO keypoints are pixels but this package has units={r.units!r}; "
-                                     "export it as npz")
-                image = {"id": r.frame, "file_name": f"frame_{r.frame:08d}", "frame": r.frame, "t": r.t}
-                if frame_size is not None:
-                    image["width"], image["height"] = int(frame_size[0]), int(frame_size[1])
-                g.write(("," if n_rows else "") + json.dumps(image, allow_nan=False))
-                n_rows += 1
-                for i in range(len(r.ids)):
-                    kp = ",".join(_num(v) for v in r.keypoints[i].reshape(-1))
-                    f.write(("," if n_people else "") +
-                            f'\n{{"image_id":{r.frame},"category_id":1,"keypoints":[{kp}],'
-                            f'"score":{_num(r.scores[i])},"track_id":{int(r.ids[i])}}}')
-                    n_people += 1
-            f.write("\n]\n")
-            g.write('],"annotations":[],"categories":' + json.dumps(coco_categories()) + "}\n")
-        os.replace(tmp_gt, gt_out)
-        os.replace(tmp, out)
-    except BaseException:
-        tmp.unlink(missing_ok=True)
-        tmp_gt.unlink(missing_ok=True)
-        raise
+    # Both via temporary names; the results file is renamed into place last.
+    with fsio.atomic_file(out, replace=force) as f_bin, fsio.atomic_file(gt_out, replace=force) as g_bin:
+        def f(text: str) -> None:
+            f_bin.write(text.encode("utf-8"))
+
+        def g(text: str) -> None:
+            g_bin.write(text.encode("utf-8"))
+
+        f("[")
+        g('{"info":{"description":"images of a skeleton package (no pixels); '
+          'pseudonymised personal data"},"images":[')
+        for r in _rows(lines):
+            if r.units != "pixels":
+                raise InputError(f"format: COCO keypoints are pixels but this package has units={r.units!r}; "
+                                 "export it as npz")
+            image = {"id": r.frame, "file_name": f"frame_{r.frame:08d}", "frame": r.frame, "t": r.t}
+            if frame_size is not None:
+                image["width"], image["height"] = int(frame_size[0]), int(frame_size[1])
+            g(("," if n_rows else "") + json.dumps(image, allow_nan=False))
+            n_rows += 1
+            for i in range(len(r.ids)):
+                kp = ",".join(_num(v) for v in r.keypoints[i].reshape(-1))
+                f(("," if n_people else "") +
+                  f'\n{{"image_id":{r.frame},"category_id":1,"keypoints":[{kp}],'
+                  f'"score":{_num(r.scores[i])},"track_id":{int(r.ids[i])}}}')
+                n_people += 1
+        f("\n]\n")
+        g('],"annotations":[],"categories":' + json.dumps(coco_categories()) + "}\n")
     return {"format": "coco", "out": str(out), "gt_out": str(gt_out), "rows": n_rows, "results": n_people,
             "units": "pixels"}
 

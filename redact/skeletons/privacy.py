@@ -508,24 +508,19 @@ def apply_privacy_file(src, dst, options: PrivacyOptions, frame_size: tuple[int,
     and rename; return the summary."""
     from pathlib import Path
 
+    from redact import fsio
     from redact.skeletons.rows import read_rows
 
     src, dst = Path(src), Path(dst)
     scan = None
-    tmp = dst.with_name(f".{dst.name}.tmp-{secrets.token_hex(4)}")
     try:
         if options.needs_scan:
             with open(src, "rb") as f:
                 scan = scan_tracks(read_rows(f))
-        with open(src, "rb") as f, open(tmp, "wb") as out:
+        with open(src, "rb") as f, fsio.atomic_file(dst, replace=True) as out:
             run = apply_privacy(read_rows(f), options, frame_size, fps, scan)
             for line in run:
                 out.write(line)
-        os.replace(tmp, dst)
     except (ValueError, PackageError) as e:  # a malformed row (read_rows names the line)
-        tmp.unlink(missing_ok=True)
         raise InputError(f"{src}: {e}") from None
-    except BaseException:
-        tmp.unlink(missing_ok=True)
-        raise
     return dict(run.summary)
