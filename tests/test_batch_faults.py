@@ -49,7 +49,7 @@ def tree(tmp_path_factory, crossing_clip):
 
 
 def _cli(tree, out: Path, *args):
-    return CliRunner().invoke(main, ["batch", str(tree["src"]), "--out", str(out), "--key", str(tree["private"]),
+    return CliRunner().invoke(main, ["batch", str(tree["src"]), "--out", str(out), "--signing-key", str(tree["private"]),
                                      "--quiet", *args], env={batch.PASSPHRASE_ENV: PASSPHRASE})
 
 

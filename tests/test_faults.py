@@ -113,7 +113,7 @@ def test_a_second_run_into_the_same_folder_is_refused_and_the_first_is_intact(cl
     try:
         assert gate.reached.wait(600)
         extra = ["--archive"] if archive else []
-        r = CliRunner().invoke(main, ["process", str(clip), "--out", str(out), "--key", str(key), "--input-size",
+        r = CliRunner().invoke(main, ["process", str(clip), "--out", str(out), "--signing-key", str(key), "--input-size",
                                       "320", "--threads", "1", *extra])
     finally:
         gate.release.set()
@@ -199,7 +199,7 @@ def test_a_full_disk_is_one_line_naming_the_folder_and_the_space(clip, tmp_path,
         monkeypatch.setattr(pipeline, "open", _full_skeleton_file(builtins.open), raising=False)
     else:
         monkeypatch.setattr(fsio, "free_bytes", lambda folder: 1000)
-    r = CliRunner().invoke(main, ["process", str(clip), "--out", str(out), "--key", str(key),
+    r = CliRunner().invoke(main, ["process", str(clip), "--out", str(out), "--signing-key", str(key),
                                   "--input-size", "320", "--threads", "1", "--quiet"])
     assert r.exit_code == 2, r.output
     line = _one_error_line(r)
@@ -244,7 +244,7 @@ main()
 def test_sigterm_ends_a_run_like_ctrl_c(clip, tmp_path, key, signum, status, words):
     out = tmp_path / "out"
     env = {**os.environ, "REDACT_KEY_PASSPHRASE": "test passphrase"}
-    p = subprocess.Popen([sys.executable, "-c", _SLOW_DRIVER, "process", str(clip), "--out", str(out), "--key",
+    p = subprocess.Popen([sys.executable, "-c", _SLOW_DRIVER, "process", str(clip), "--out", str(out), "--signing-key",
                           str(key), "--input-size", "320", "--threads", "1", "--quiet"],
                          stderr=subprocess.PIPE, stdout=subprocess.DEVNULL, text=True, env=env)
     try:
@@ -271,10 +271,10 @@ def test_stale_staging_of_an_earlier_run_is_removed_and_others_are_mentioned(cli
         (d / "redacted.mp4").write_bytes(b"an earlier run was killed here")
         past = time.time() - 7200
         os.utime(d, (past, past))
-    r = CliRunner().invoke(main, ["process", str(clip), "--out", str(out), "--key", str(key), "--input-size", "320",
+    r = CliRunner().invoke(main, ["process", str(clip), "--out", str(out), "--signing-key", str(key), "--input-size", "320",
                                   "--threads", "1", "--quiet"])
     assert r.exit_code == 0, r.output
-    assert _entries(out) == [".redact-batch-partial-z3", "package", "redacted.mp4"]
+    assert _entries(out) == [".redact-batch-partial-z3", "package", "redacted.mp4", "report.html"]
     notes = [ln for ln in r.stderr.splitlines() if ln.startswith("note: ")]
     assert len(notes) == 2
     assert "removed 1 unfinished staging folder" in notes[0] and ".redact-partial-x1y2" in notes[0]
@@ -290,7 +290,7 @@ def test_a_fifo_and_dev_zero_are_named_for_what_they_are(tmp_path, key):
         with pytest.raises(InputError) as e:
             video.probe(path)
         assert f"{path}: {kind}, not a video file" in str(e.value) and "empty" not in str(e.value)
-        r = CliRunner().invoke(main, ["process", str(path), "--out", str(tmp_path / "o"), "--key", str(key),
+        r = CliRunner().invoke(main, ["process", str(path), "--out", str(tmp_path / "o"), "--signing-key", str(key),
                                       "--quiet"])
         assert r.exit_code == 2 and kind in _one_error_line(r)
     assert not (tmp_path / "o").exists()
@@ -321,12 +321,12 @@ def made(crossing_clip, tmp_path_factory):
 def _commands(made, target: Path) -> dict[str, list[str]]:
     pkg, pub = str(made["package"]), str(made["public"])
     return {
-        "report": ["report", pkg, "--key", pub, "-o", str(target)],
-        "export": ["export", pkg, "--key", pub, "--format", "npz", "--out", str(target)],
-        "derive": ["derive", pkg, "--key", pub, "--sign-key", str(made["private"]), "--out", str(target),
-                   "--drop-keypoints", "head"],
+        "report": ["report", pkg, "--trusted-key", pub, "--out", str(target)],
+        "export": ["export", pkg, "--trusted-key", pub, "--format", "npz", "--out", str(target)],
+        "derive": ["derive", pkg, "--trusted-key", pub, "--signing-key", str(made["private"]), "--out",
+                   str(target), "--drop-keypoints", "head"],
         "tracks": ["tracks", str(made["clip"]), "--out", str(target), "--input-size", "320", "--threads", "1"],
-        "process": ["process", str(made["clip"]), "--out", str(target), "--key", str(made["private"]),
+        "process": ["process", str(made["clip"]), "--out", str(target), "--signing-key", str(made["private"]),
                     "--input-size", "320", "--threads", "1", "--quiet"],
     }
 
