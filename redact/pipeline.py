@@ -25,7 +25,7 @@ from redact import __version__, fsio
 from redact.errors import InputError, NoSpaceError, OutputError, RedactError
 from redact.finishing import FrameFinisher, FrameSinks, FrameWork, LookBack, RunStats
 from redact.formats.tracks_json import TrackRecord, encode_tracks
-from redact.media.stages import WriteBehind, read_ahead
+from redact.media.stages import WriteBehind, depth_for, read_ahead
 from redact.provenance import package
 from redact.provenance.log import TransformLog, utc_now
 from redact.provenance.predicate import (
@@ -270,6 +270,7 @@ def process_video(source: str | Path, out_dir: str | Path, signer: Signer,
         plan_obj.check_settings(settings.ids, entry.sha256)
     if estimator is None:
         estimator = PoseEstimator.default(settings.pose, settings.model_threads)  # hash check before output
+    _check_memory(source, info, settings)
 
     created = _make_folder(out_dir)
     try:
@@ -355,6 +356,54 @@ def _check_space(out_dir: Path, info: VideoInfo, settings: ProcessSettings) -> t
     if free < needed:
         raise NoSpaceError(out_dir, needed, free)
     return needed, free
+
+
+#: Memory of a run apart from its frames (interpreter, NumPy, OpenCV, onnxruntime with the pose
+#: model, PyAV): measured with benchmarks/memory_by_resolution.py (about 250 MiB at 320×240).
+BASE_MEMORY = 250 * 2**20
+#: Frames the codecs hold, in RGB frame sizes: x264 keeps its look-ahead, B-frames and frame threads
+#: (preset veryfast) and FFmpeg's decoder a frame per thread, each 1.5 bytes a pixel (YUV 4:2:0);
+#: fitted to benchmarks/memory_by_resolution.py.
+CODEC_FRAMES = 12
+
+
+def frames_in_flight(info: VideoInfo, settings: ProcessSettings) -> int:
+    """The most whole RGB frames a run holds at once outside the codecs: each queue between the
+    threads (bounded by bytes, media.stages.depth_for) plus the one its consumer works on, the
+    frames ahead of inference, the frame being drawn, and the look-back (lookback_seconds × fps
+    frames, held back from the encoder, the only part that grows with the frame rate)."""
+    frame = info.width * info.height * 3
+    workers = settings.model_frames
+    ahead = max(workers, depth_for(frame, 2 * workers))  # map_ahead never takes fewer than its workers
+    return ((depth_for(frame, 4) + 1) + ahead + (depth_for(frame, 2) + 1) + 1
+            + settings.lookback_frames(float(info.fps)) + (depth_for(frame, 4) + 1))
+
+
+def estimate_memory_bytes(info: VideoInfo, settings: ProcessSettings) -> int:
+    """Memory a run needs, in bytes: BASE_MEMORY + (frames_in_flight + CODEC_FRAMES) RGB frames.
+    Independent of the clip's length; grows with the frame size (README has the measured table)."""
+    return BASE_MEMORY + info.width * info.height * 3 * (frames_in_flight(info, settings) + CODEC_FRAMES)
+
+
+def available_memory() -> int | None:
+    """Bytes of memory available without swapping out others, plus free swap (Linux /proc/meminfo
+    MemAvailable + SwapFree, proc(5)); None where that is not known."""
+    try:
+        with open("/proc/meminfo", encoding="ascii") as f:
+            fields = dict(line.split(":", 1) for line in f if ":" in line)
+        return (int(fields["MemAvailable"].split()[0]) + int(fields.get("SwapFree", "0 kB").split()[0])) * 1024
+    except (OSError, KeyError, ValueError):
+        return None
+
+
+def _check_memory(source: Path, info: VideoInfo, settings: ProcessSettings) -> None:
+    """InputError before any output when the machine cannot hold what the run needs (a run killed
+    for memory halfway gives no message and leaves its staging folder behind)."""
+    needed, free = estimate_memory_bytes(info, settings), available_memory()
+    if free is not None and needed > free:
+        raise InputError(f"{source}: a {info.width}×{info.height} run needs about {needed / 2**30:.1f} GiB of "
+                         f"memory and {free / 2**30:.1f} GiB are available; close other programs, or scale the "
+                         "video down first (memory grows with the frame size, not the length)")
 
 
 def _place(video_tmp: Path, video_final: Path, signed: Path, pkg_final: Path) -> None:
@@ -452,9 +501,10 @@ def _stream(run: _Run, out: _Outputs) -> _Streamed:
     stats = RunStats()
     lookback = LookBack(s.lookback_frames(run.fps), s.render.regions, tracking.config.max_margin, stats)
     n_frames = 0
+    frame_bytes = info.width * info.height * 3  # queues hold at most QUEUE_BYTES of frames each (media.stages)
     with VideoReader(run.source, threads=0) as reader, \
             VideoWriter(out.video_tmp, info.width, info.height, info.time_base, info.fps, crf=s.crf) as writer, \
-            WriteBehind(writer.write, depth=4) as encoder, \
+            WriteBehind(writer.write, depth=depth_for(frame_bytes, 4)) as encoder, \
             open(pkg_dir / package.SKELETONS, "wb") as skel, \
             open(pkg_dir / package.QUALITY, "wb") as qual, \
             open(pkg_dir / package.FRAMES, "wb") as frames_out:
@@ -465,8 +515,9 @@ def _stream(run: _Run, out: _Outputs) -> _Streamed:
         # overlapping the next inferences.
         # Closing the tracking pass stops and joins the inference and decoding threads (on every exit
         # path) before the reader closes its container: a decoder thread left inside FFmpeg can crash.
-        with WriteBehind(finisher.finish, depth=2) as finishing, \
-                contextlib.closing(tracking.run(read_ahead(reader.frames(), depth=4))) as tracked:
+        with WriteBehind(finisher.finish, depth=depth_for(frame_bytes, 2)) as finishing, \
+                contextlib.closing(tracking.run(read_ahead(reader.frames(), depth=depth_for(frame_bytes, 4)),
+                                                ahead=depth_for(frame_bytes, 2 * tracking.workers))) as tracked:
             for item in tracked:
                 finishing.submit(_decide(run.plan, item))
                 n_frames += 1

@@ -24,6 +24,16 @@ T = TypeVar("T")
 R = TypeVar("R")
 _END = object()
 
+#: Bytes of frames one queue between two threads may hold. Common practice: a few HD frames; a
+#: 7680×4320 RGB frame alone is 100 MB, so at that size every queue shrinks to one frame.
+QUEUE_BYTES = 64 * 2**20
+
+
+def depth_for(frame_bytes: int, default: int) -> int:
+    """How many frames of `frame_bytes` one queue may hold: `default`, or fewer so the queue holds
+    at most QUEUE_BYTES (never fewer than 1). Memory then stays bounded at any frame size."""
+    return max(1, min(int(default), QUEUE_BYTES // max(1, int(frame_bytes))))
+
 
 class _Failure:
     def __init__(self, error: BaseException):
@@ -73,14 +83,16 @@ def read_ahead(items: Iterable[T], depth: int = 4) -> Iterator[T]:
 
 
 def map_ahead(fn: Callable[[T], R], items: Iterable[T],
-              workers: int = 1) -> Iterator[tuple[T, R | None, Exception | None]]:
+              workers: int = 1, ahead: int | None = None) -> Iterator[tuple[T, R | None, Exception | None]]:
     """Yield (item, fn(item), None) in the order of `items`, with up to `workers` calls running at
     once in a thread pool; a call that raises gives (item, None, error) instead, so the caller can
     fail closed on that one item. workers=1 calls fn in the caller's thread, one item at a time.
 
-    At most 2×workers items are taken from `items` ahead of the one being yielded (bounded memory).
-    fn must be safe to call from several threads at once when workers > 1.
+    At most `ahead` items (default 2×workers, never fewer than workers) are taken from `items`
+    ahead of the one being yielded (bounded memory). fn must be safe to call from several threads
+    at once when workers > 1.
     """
+    limit = max(workers, 2 * workers if ahead is None else int(ahead))
 
     def call(item):
         try:
@@ -99,7 +111,7 @@ def map_ahead(fn: Callable[[T], R], items: Iterable[T],
             try:
                 for item in source:
                     pending.append((item, pool.submit(call, item)))
-                    if len(pending) >= 2 * workers:
+                    if len(pending) >= limit:
                         head, fut = pending.popleft()
                         yield (head, *fut.result())
                 while pending:

@@ -103,9 +103,11 @@ class TrackingPass:
         self.tracker = Tracker(self.config)
         self.workers = max(1, int(workers))
 
-    def run(self, frames: Iterable[Frame]) -> Iterator[TrackedFrame]:
+    def run(self, frames: Iterable[Frame], ahead: int | None = None) -> Iterator[TrackedFrame]:
+        """Each frame with its tracks, in order; `ahead` bounds the frames taken ahead of inference
+        (media.stages.map_ahead; the pipeline shrinks it for large frames)."""
         every = self.ids.detect_every
-        detected = map_ahead(lambda f: detect(self.estimator, f, every), frames, self.workers)
+        detected = map_ahead(lambda f: detect(self.estimator, f, every), frames, self.workers, ahead)
         for frame, poses, failed in detected:
             if failed is not None:
                 yield TrackedFrame(frame, None, type(failed).__name__)
