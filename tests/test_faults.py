@@ -127,7 +127,7 @@ def test_a_second_run_into_the_same_folder_is_refused_and_the_first_is_intact(cl
     pub = tmp_path / "winner.public.pem"
     pub.write_bytes(Signer.from_seed(SEED).public_pem)
     verified = verify_package(out / pkg, [load_public_key(pub)], source=clip, video=out / "redacted.mp4")
-    assert verified.predicate["source"]["sha256"] == first.result.source_sha256
+    assert verified.predicate.source.sha256 == first.result.source_sha256
 
 
 # ---- a source that changes while it is read ------------------------------------------------------
