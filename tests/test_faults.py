@@ -328,13 +328,16 @@ def _commands(made, target: Path) -> dict[str, list[str]]:
         "tracks": ["tracks", str(made["clip"]), "--out", str(target), "--input-size", "320", "--threads", "1"],
         "process": ["process", str(made["clip"]), "--out", str(target), "--signing-key", str(made["private"]),
                     "--input-size", "320", "--threads", "1", "--quiet"],
+        "batch": ["batch", str(made["clip"].parent), "--out", str(target), "--signing-key", str(made["private"]),
+                  "--input-size", "320", "--threads", "1", "--quiet"],
     }
 
 
-@pytest.mark.parametrize("command", ["report", "export", "derive", "tracks", "process"])
+@pytest.mark.parametrize("command", ["report", "export", "derive", "tracks", "process", "batch"])
 def test_a_command_whose_output_is_being_written_stops_at_once(made, tmp_path, command):
     target = tmp_path / ("out-" + command)
-    if command == "process":
+    folder = command in ("process", "batch")  # these write into a folder; the others make a new name
+    if folder:
         target.mkdir()
         lock = fsio.lock_folder(target).acquire()  # another run writing into OUT
     else:
@@ -346,5 +349,5 @@ def test_a_command_whose_output_is_being_written_stops_at_once(made, tmp_path, c
         lock.release()
     assert r.exit_code == 2, r.output
     assert "another redact run is writing" in _one_error_line(r)
-    assert _entries(tmp_path) == (["out-process"] if command == "process" else [])
+    assert _entries(tmp_path) == ([target.name] if folder else [])
     assert _entries(target) == []
