@@ -13,7 +13,7 @@ import pytest
 import redact
 
 ROOT = Path(redact.__file__).resolve().parent
-FOUNDATIONS = ("redact.errors", "redact.jsonio", "redact.hashing", "redact.ranges", "redact.formats")
+FOUNDATIONS = ("redact.errors", "redact.jsonio", "redact.hashing", "redact.ranges", "redact.formats", "redact.fsio")
 ALLOWED = {
     "formats": FOUNDATIONS,
     "provenance": FOUNDATIONS + ("redact.provenance",),
@@ -66,3 +66,12 @@ def test_the_walker_sees_imports_inside_functions(tmp_path):
     src.write_text("def f():\n    import numpy\n    from redact.vision import pose\n    from ..media import video\n",
                    encoding="utf-8")
     assert {"numpy", "redact.vision", "redact.media"} <= imports_of(src, "redact.provenance")
+
+
+def test_fsio_is_a_foundation():
+    """redact.fsio (atomic writes, locks) is used by provenance/, so it imports only the standard
+    library and the error hierarchy."""
+    mods = imports_of(ROOT / "fsio.py", "redact")
+    ours = {m for m in mods if m.startswith("redact")}
+    assert ours == {"redact.errors"}
+    assert all(m.split(".")[0] in sys.stdlib_module_names or m == "__future__" for m in mods - ours)
