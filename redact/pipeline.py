@@ -502,13 +502,17 @@ def _stream(run: _Run, out: _Outputs) -> _Streamed:
     lookback = LookBack(s.lookback_frames(run.fps), s.render.regions, tracking.config.max_margin, stats)
     n_frames = 0
     frame_bytes = info.width * info.height * 3  # queues hold at most QUEUE_BYTES of frames each (media.stages)
-    with VideoReader(run.source, threads=0) as reader, \
+    from redact.review.store import REGIONS, RecordStore
+
+    store = RecordStore(pkg_dir / REGIONS, info.width, info.height, s.render)  # for re-rendering (docs/review.md)
+    with store, VideoReader(run.source, threads=0) as reader, \
             VideoWriter(out.video_tmp, info.width, info.height, info.time_base, info.fps, crf=s.crf) as writer, \
             WriteBehind(writer.write, depth=depth_for(frame_bytes, 4)) as encoder, \
             open(pkg_dir / package.SKELETONS, "wb") as skel, \
             open(pkg_dir / package.QUALITY, "wb") as qual, \
             open(pkg_dir / package.FRAMES, "wb") as frames_out:
-        sinks = FrameSinks(encoder.submit, skel, qual, frames_out, info.frames, run.progress, run.records)
+        sinks = FrameSinks(encoder.submit, skel, qual, frames_out, info.frames, run.progress,
+                           _storing(store, run.records))
         finisher = FrameFinisher(s.render, s.detect_every, run.obscurer, lookback, monitor, stats, sinks)
         # Detection may run on several frames at once; tracking stays here, in frame order.
         # Obscure records, the look-back, rendering, rows and quality run in one thread behind,
@@ -525,6 +529,15 @@ def _stream(run: _Run, out: _Outputs) -> _Streamed:
         encoder.close()
     return _Streamed(n_frames, writer.frames_written, reader.sha256, reader.bytes, reader.stopped_early,
                      reader.corrupt_frames, stats, monitor, tracking.summary())
+
+
+def _storing(store, records: Callable[[ObscureRecord], None] | None) -> Callable[[ObscureRecord], None]:
+    """The records sink: each final obscure record stored (redact.review.store), then handed on."""
+    def sink(record: ObscureRecord) -> None:
+        store.write(record)
+        if records is not None:
+            records(record)
+    return sink
 
 
 def _decide(plan: Plan | None, item: TrackedFrame) -> FrameWork:

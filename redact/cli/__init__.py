@@ -34,6 +34,8 @@ COMMANDS: dict[str, str] = {
     "verify": "cmd_verify",
     "inspect": "cmd_inspect",
     "report": "cmd_report",
+    "review": "cmd_review",
+    "disclose": "cmd_review",
     "derive": "cmd_derive",
     "export": "cmd_export",
     "frame-proof": "cmd_frameproof",

@@ -374,6 +374,21 @@ def _partial_source_section(pred: dict, verified: bool) -> str:
             f"cover the whole video{esc(note)}</p><p>{esc(text)}</p></div>")
 
 
+def _human_review_section(pred: dict) -> str:
+    """The review status, for the top of the page: who checked how many ranges, corrections, coverage."""
+    from redact.review.state import summary_line
+
+    rec = _obj(pred, "human_review")
+    if not rec:
+        return ('<div class="status bad" id="human-review"><p class="big">Review: not reviewed</p><p>No person has '
+                "recorded a review of this copy (`redact review`). Check every flagged range and watch the whole "
+                "redacted video before anything is disclosed.</p></div>")
+    ok = rec.get("ranges_checked") == rec.get("ranges_total") and rec.get("whole_video_watched") is True
+    return (f'<div class="status {"ok" if ok else "bad"}" id="human-review"><p class="big">Review: '
+            f"{esc(summary_line(rec))}</p><p>Reviewed at {esc(rec.get('reviewed_at'))} (UTC); frames shown on "
+            f"screen: {esc(rec.get('frames_watched'))} of {esc(rec.get('frames'))}.</p></div>")
+
+
 def _source_section(pred: dict) -> str:
     src = _obj(pred, "source")
     size = _num(src.get("bytes"))
@@ -605,6 +620,7 @@ def make_report(package: Path, trusted_keys: list, video: Path | None = None,
     body = [
         f"<header><h1>{esc(title)}</h1><p class=\"sub\">Report generated {esc(utc_now())} by redact "
         f"{esc(__version__)} from the package <span class=\"mono\">{esc(_package_label(package))}</span>.</p></header>",
+        _human_review_section(pred),
         _status_section(verified, key_id, checked, findings, video, source),
         _partial_source_section(pred, verified),
         (f'<div class="status bad"><p><b>Parts of the package could not be read:</b></p><ul>{problems}</ul></div>'

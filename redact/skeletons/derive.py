@@ -37,6 +37,11 @@ from redact.provenance.package import ENVELOPE, LOG, QUALITY, REVIEW, SKELETONS,
 from redact.provenance.predicate import Disclosure, ParentRecord, Predicate, ToolRecord
 from redact.skeletons.privacy import PrivacyOptions, apply_privacy_file, parse_keypoints
 
+#: Parent files not copied: the stored regions (redact.review.store.REGIONS) hold the people's
+#: outlines in source pixels, which would undo coordinate options such as noise or relative units.
+NOT_COPIED = ("regions.jsonl.gz",)
+
+
 # ---- inside a staging directory ------------------------------------------------------------------
 
 def _first_time_and_units(path: Path) -> float | None:
@@ -167,7 +172,7 @@ def _copy_verified(parent: VerifiedPackage, staging: Path) -> list[str]:
     is checked against its signed hash as it is read (the parent could change after verification)."""
     copied = []
     for name in sorted(parent.statement.files):
-        if name in (ENVELOPE, LOG):
+        if name in (ENVELOPE, LOG) or name in NOT_COPIED:
             continue
         dst = staging / name
         dst.parent.mkdir(parents=True, exist_ok=True)
@@ -220,6 +225,7 @@ def derive(parent: Path, out: Path, trusted_keys: Sequence, signer, options: Pri
         log.append("derive", parent_statement_sha256=parent_rec.statement_sha256,
                    parent_key_id=parent_rec.key_id, parent_log_head=parent_rec.log_head,
                    parent_log_entries=None if pred.log is None else pred.log.entries, copied=copied,
+                   not_copied=[n for n in NOT_COPIED if n in parent.statement.files],
                    note="new log; the parent's log stays with the parent package")
         summary = rewrite_skeleton_files(staging, options, frame_size, fps)
         record = options.to_record()
