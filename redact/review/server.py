@@ -34,7 +34,8 @@ from redact.review.outputs import LoadedOutput, apply_review, latest, load_outpu
 from redact.review.state import STATUSES
 
 TOKEN_HEADER = "X-Review-Token"
-ASSETS = {"review.js": "application/javascript; charset=utf-8", "review.css": "text/css; charset=utf-8"}
+ASSETS = {"review.js": "application/javascript; charset=utf-8", "review.css": "text/css; charset=utf-8",
+          "icon.svg": "image/svg+xml"}
 CSP = ("default-src 'none'; script-src 'self'; style-src 'self'; img-src 'self'; connect-src 'self'; "
        "base-uri 'none'; form-action 'none'; frame-ancestors 'none'")
 BODY_LIMIT = 4 * 1024 * 1024  # bytes of a POST body (common practice)
