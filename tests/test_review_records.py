@@ -149,3 +149,45 @@ def test_disclose_cli_and_its_errors(made, tmp_path, monkeypatch):
 def test_review_of_a_folder_without_outputs_is_one_line_error(tmp_path):
     with pytest.raises(InputError, match="expected redacted.mp4 and package/"):
         load_output(tmp_path, [Signer.from_seed(bytes(32)).public_key])
+
+
+def test_a_countersigned_reviewed_copy_verifies_with_both_keys_and_names_both_signers(made, tmp_path, monkeypatch):
+    """The data-protection officer countersigns the reviewed package (`redact countersign`, DSSE
+    envelope.md: several signatures over one PAE); `verify` names both; a tampered second
+    signature fails (RFC 8032 §5.1.7 verification, here through the package verifier)."""
+    from redact.provenance.signing import generate_key
+
+    monkeypatch.setenv("REDACT_KEY_PASSPHRASE", "dpo pass phrase")
+    generate_key(tmp_path / "dpo.pem", tmp_path / "dpo.pub", b"dpo pass phrase")
+    dpo = load_private_key(tmp_path / "dpo.pem", b"dpo pass phrase")
+    steward_pub = tmp_path / "steward.pub"
+    steward_pub.write_bytes(made["signer"].public_pem)
+    copy = tmp_path / "review-copy"
+    import shutil
+
+    shutil.copytree(made["applied"].folder, copy)
+    r = CliRunner().invoke(main, ["countersign", str(copy / "package"), "--signing-key", str(tmp_path / "dpo.pem"),
+                                  "--trusted-key", str(steward_pub)])
+    assert r.exit_code == 0, r.output
+    r = CliRunner().invoke(main, ["verify", str(copy / "package"), "--trusted-key", str(steward_pub),
+                                  "--trusted-key", str(tmp_path / "dpo.pub"), "--video", str(copy / "redacted.mp4"),
+                                  "--json"])
+    assert r.exit_code == 0, r.output
+    signers = {s["key_id"] for s in json.loads(r.stdout)["signers"]}
+    assert signers == {made["signer"].key_id, dpo.key_id}
+    # With only the steward's key the DPO's signature cannot be checked: not valid.
+    r = CliRunner().invoke(main, ["verify", str(copy / "package"), "--trusted-key", str(steward_pub)])
+    assert r.exit_code == 1
+    # The review step reads a countersigned copy when both keys are trusted.
+    loaded = load_output(copy, [made["signer"].public_key, dpo.public_key])
+    assert {s.key_id for s in loaded.verified.signers} == signers
+    # One bit of the second signature flipped: verification fails and says which signature.
+    env = json.loads((copy / "package" / "envelope.json").read_bytes())
+    sig = bytearray(base64.b64decode(env["signatures"][1]["sig"]))
+    sig[10] ^= 1
+    env["signatures"][1]["sig"] = base64.b64encode(bytes(sig)).decode()
+    (copy / "package" / "envelope.json").write_bytes(json.dumps(env, sort_keys=True, separators=(",", ":")).encode()
+                                                     + b"\n")
+    r = CliRunner().invoke(main, ["verify", str(copy / "package"), "--trusted-key", str(steward_pub),
+                                  "--trusted-key", str(tmp_path / "dpo.pub")])
+    assert r.exit_code == 1 and "signature 1" in r.output
