@@ -191,3 +191,30 @@ def test_a_countersigned_reviewed_copy_verifies_with_both_keys_and_names_both_si
     r = CliRunner().invoke(main, ["verify", str(copy / "package"), "--trusted-key", str(steward_pub),
                                   "--trusted-key", str(tmp_path / "dpo.pub")])
     assert r.exit_code == 1 and "signature 1" in r.output
+
+
+def test_review_cli_bad_inputs_are_one_line_errors(made, tmp_path, clip_factory):
+    """`redact review` refuses before serving anything: a folder without outputs, a source that is
+    not the signed one (SHA-256 differs), a key that does not verify the package."""
+    from tests.conftest import crossing_spec
+
+    pub = tmp_path / "steward.pub"
+    pub.write_bytes(made["signer"].public_pem)
+    from redact.provenance.signing import generate_key
+
+    generate_key(tmp_path / "k.pem", tmp_path / "k.pub", b"pass phrase 1")
+    env = {"REDACT_KEY_PASSPHRASE": "pass phrase 1"}
+    base = ["--trusted-key", str(pub), "--signing-key", str(tmp_path / "k.pem")]
+    empty = tmp_path / "empty"
+    empty.mkdir()
+    other = clip_factory("other.mp4", crossing_spec(seed=5))
+    for args, words, code in (
+            ([str(empty), "--source", str(made["clip"].path)], "expected redacted.mp4 and package/", 2),
+            ([str(made["dir"] / "out"), "--source", str(other.path)], "not the source this output was made from", 2)):
+        r = CliRunner().invoke(main, ["review", *args, *base], env=env)
+        assert r.exit_code == code and words in r.output, r.output
+        assert "Traceback" not in r.output and len(r.output.strip().splitlines()) == 1
+    r = CliRunner().invoke(main, ["review", str(made["dir"] / "out"), "--source", str(made["clip"].path),
+                                  "--trusted-key", str(tmp_path / "k.pub"), "--signing-key", str(tmp_path / "k.pem")],
+                           env=env)
+    assert r.exit_code == 1 and "Traceback" not in r.output

@@ -297,6 +297,7 @@ section { margin: 1.6rem 0; }
 .status.bad { border-color: #b00020; background: #fff1f2; }
 .status .big { font-size: 1.35rem; font-weight: 700; margin: 0 0 .3rem; }
 .status.ok .big { color: #1b5e20; } .status.bad .big { color: #b00020; }
+.status.open { border-color: #c77700; background: #fff8ec; } .status.open .big { color: #7a4a00; }
 .caution { border-left: 5px solid #c77700; background: #fff8ec; padding: .6rem 1rem; margin: .6rem 0; }
 .caution b { display: block; }
 table { border-collapse: collapse; width: 100%; font-size: .92rem; }
@@ -380,11 +381,11 @@ def _human_review_section(pred: dict) -> str:
 
     rec = _obj(pred, "human_review")
     if not rec:
-        return ('<div class="status bad" id="human-review"><p class="big">Review: not reviewed</p><p>No person has '
+        return ('<div class="status open" id="human-review"><p class="big">Review: not reviewed</p><p>No person has '
                 "recorded a review of this copy (`redact review`). Check every flagged range and watch the whole "
                 "redacted video before anything is disclosed.</p></div>")
     ok = rec.get("ranges_checked") == rec.get("ranges_total") and rec.get("whole_video_watched") is True
-    return (f'<div class="status {"ok" if ok else "bad"}" id="human-review"><p class="big">Review: '
+    return (f'<div class="status {"ok" if ok else "open"}" id="human-review"><p class="big">Review: '
             f"{esc(summary_line(rec))}</p><p>Reviewed at {esc(rec.get('reviewed_at'))} (UTC); frames shown on "
             f"screen: {esc(rec.get('frames_watched'))} of {esc(rec.get('frames'))}.</p></div>")
 
