@@ -9,6 +9,7 @@ import click
 from redact.cli import main
 from redact.cli.cmd_keys import PASSPHRASE_ENV, read_passphrase
 from redact.cli.common import echo_json, library_errors
+from redact.cli.keyfiles import check_signing_key, load_trusted_keys, signing_key_option, trusted_keys_option
 from redact.cli.options import disclosure_options
 
 REVIEW_CAUTION = ("Automated redaction misses people: check every flagged range and watch the whole "
@@ -18,10 +19,10 @@ REVIEW_CAUTION = ("Automated redaction misses people: check every flagged range 
 
 
 def _keys(trusted: tuple[Path, ...], signing_key: Path):
-    from redact.provenance.signing import load_private_key, load_public_key
+    from redact.provenance.signing import load_private_key
 
-    keys = [load_public_key(k) for k in trusted]
-    return keys, load_private_key(signing_key, read_passphrase(confirm=False))
+    keys = load_trusted_keys(trusted)
+    return keys, load_private_key(check_signing_key(signing_key), read_passphrase(confirm=False))
 
 
 @main.command("review", epilog=f"""\b
@@ -38,21 +39,19 @@ go on from the newest reviewed copy. The key passphrase is read from ${PASSPHRAS
 @click.argument("out", type=click.Path(exists=True, file_okay=False, path_type=Path))
 @click.option("--source", required=True, type=click.Path(exists=True, dir_okay=False, path_type=Path),
               help="The original video the output was made from (checked against the signed SHA-256).")
-@click.option("--trusted-key", "trusted", multiple=True, required=True,
-              type=click.Path(exists=True, dir_okay=False, path_type=Path),
-              help="Public key (PEM) the output's package must verify with; repeat for several.")
-@click.option("--signing-key", required=True, type=click.Path(exists=True, dir_okay=False, path_type=Path),
-              help="Private key (PKCS#8 PEM from `redact keygen`) that signs the reviewed package.")
+@trusted_keys_option(help="Trusted public key, a file (NAME.public.pem): the output's package must verify "
+                         "with it; repeat for several (e.g. a countersigned copy).")
+@signing_key_option(help="Private key that signs the reviewed package, a file (NAME.private.pem).")
 @click.option("--port", type=click.IntRange(0, 65535), default=0, show_default=True,
               help="Port on 127.0.0.1 (0: a free one chosen by the system).")
 @library_errors
-def review(out: Path, source: Path, trusted: tuple[Path, ...], signing_key: Path, port: int) -> None:
+def review(out: Path, source: Path, trusted_keys: tuple[Path, ...], signing_key: Path, port: int) -> None:
     """Open the review page for OUT (a folder written by `redact process`): step through the
     redacted copy, check each flagged range, draw what was missed, and apply: a re-rendered copy
     and a signed review record, without running the model again."""
     from redact.review.server import ReviewServer, ReviewSession
 
-    keys, signer = _keys(trusted, signing_key)
+    keys, signer = _keys(trusted_keys, signing_key)
     session = ReviewSession(out, source, keys, signer)
     server = ReviewServer(session, port)
     click.echo(f"reviewing {session.output.folder} ({session.output.frames} frames, "
@@ -81,22 +80,20 @@ from ${PASSPHRASE_ENV} or prompted.
 
 Disclose only what your data-protection officer has approved; a person must have reviewed the copy.""")
 @click.argument("out", type=click.Path(exists=True, file_okay=False, path_type=Path))
-@click.option("--trusted-key", "trusted", multiple=True, required=True,
-              type=click.Path(exists=True, dir_okay=False, path_type=Path),
-              help="Public key (PEM) the output's package must verify with; repeat for several.")
-@click.option("--signing-key", required=True, type=click.Path(exists=True, dir_okay=False, path_type=Path),
-              help="Private key (PKCS#8 PEM) that signs the disclosure record.")
+@trusted_keys_option(help="Trusted public key, a file (NAME.public.pem): the output's package must verify "
+                         "with it; repeat for several.")
+@signing_key_option(help="Private key that signs the disclosure record, a file (NAME.private.pem).")
 @disclosure_options
 @click.option("--json", "as_json", is_flag=True, help="Print one JSON summary on stdout.")
 @library_errors
-def disclose(out: Path, trusted: tuple[Path, ...], signing_key: Path, disclosure, as_json: bool) -> None:
+def disclose(out: Path, trusted_keys: tuple[Path, ...], signing_key: Path, disclosure, as_json: bool) -> None:
     """Record a new disclosure of OUT (an output of `process` or `review`) in a new signed record."""
     from redact.errors import InputError
     from redact.review.disclose import disclose_again
 
     if not disclosure:
         raise InputError("give the disclosure: --recipient, --organisation, --purpose, --request-ref")
-    keys, signer = _keys(trusted, signing_key)
+    keys, signer = _keys(trusted_keys, signing_key)
     rec = disclose_again(out, keys, signer, disclosure)
     if as_json:
         echo_json({"record": str(rec.path), "key_id": rec.key_id, "statement_sha256": rec.statement_sha256,
