@@ -73,9 +73,9 @@ def rerender(source: Path, stored: StoredRegions, frame_digests: Sequence[str], 
     from redact.media.video import VideoReader, VideoWriter, probe
 
     style = render_settings(parameters)
-    if style.style == "plate":
-        raise InputError("re-rendering a copy made with --style plate is not supported yet (the background "
-                         "plate is not stored); process the video again with the plan instead")
+    if style.style == "background":
+        raise InputError("re-rendering a copy made with --style background is not supported yet (the empty "
+                         "scene it shows is not stored); process the video again with a plan instead")
     obscurer = obscurer_for(style)
     info = probe(source)
     if (info.width, info.height) != (stored.width, stored.height):
