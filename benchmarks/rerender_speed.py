@@ -24,6 +24,7 @@ from pathlib import Path
 
 from redact.media.video import VideoReader, VideoWriter, probe
 from redact.pipeline import ProcessSettings, process_video
+from redact.provenance.predicate import thaw
 from redact.provenance.signing import Signer
 from redact.redaction.plan import parse_plan
 from redact.review.outputs import load_output
@@ -54,7 +55,7 @@ def main() -> None:
         t_proc = best(lambda: process_video(clip, d / f"p{next(runs)}", signer, ProcessSettings()), args.repeat)
         out = load_output(d / "p0", [signer.public_key])
         stored = parse_regions(io.BytesIO(out.files[REGIONS]), out.frames)
-        digests, sha, params = out.frame_digests(), out.predicate["source"]["sha256"], out.predicate["parameters"]
+        digests, sha, params = out.frame_digests(), out.predicate.source.sha256, thaw(out.predicate.parameters)
         w, h = info.width, info.height
         plan_doc = {"version": "redact-plan/1", "moving_boxes": [{"keyframes": [
             {"frame": 0, "box": [0, 0, w / 4, h / 2]}, {"frame": out.frames - 1, "box": [w * 3 / 4, h / 2, w, h]}]}]}

@@ -19,6 +19,7 @@ import pytest
 
 from redact.errors import InputError, VerificationFailed
 from redact.pipeline import ProcessSettings, process_video
+from redact.provenance.predicate import thaw
 from redact.provenance.signing import Signer
 from redact.redaction.render import RenderSettings
 from redact.review.outputs import load_output
@@ -68,8 +69,8 @@ def run(request, crossing_clip, tmp_path_factory):
 def _rerender(run, out, source=None, plan=None):
     loaded = load_output(run["dir"] / "out", [run["signer"].public_key])
     stored = parse_regions(io.BytesIO(loaded.files[REGIONS]), loaded.frames)
-    return rerender(source or run["clip"].path, stored, loaded.frame_digests(), loaded.predicate["source"]["sha256"],
-                    loaded.predicate["parameters"], out, plan=plan)
+    return rerender(source or run["clip"].path, stored, loaded.frame_digests(), loaded.predicate.source.sha256,
+                    thaw(loaded.predicate.parameters), out, plan=plan)
 
 
 def test_regions_are_a_signed_gzip_file_with_one_run_per_unchanged_stretch(run):

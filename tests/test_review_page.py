@@ -214,5 +214,5 @@ def test_the_new_package_verifies_and_records_the_review(reviewed):
     r = log["human-review"]
     assert r["reviewer"] == "Test Reviewer" and r["whole_video_watched"] is True
     assert r["ranges_checked"] == r["ranges_total"] and r["ranges"][0]["note"].startswith("box drawn")
-    assert v.predicate["human_review"]["reviewer"] == "Test Reviewer"
+    assert v.predicate.human_review["reviewer"] == "Test Reviewer"
     assert json.loads((d / "package" / "corrections.json").read_bytes())["moving_boxes"] == boxes

@@ -62,7 +62,8 @@ def test_reviewed_package_verifies_and_names_its_parent(made):
     first = log[0]
     assert first["kind"] == "review-parent"
     assert first["parent_statement_sha256"] == hashlib.sha256(made["parent"].verified.payload).hexdigest()
-    assert v.predicate["parent"]["statement_sha256"] == first["parent_statement_sha256"]
+    assert v.predicate.parent.statement_sha256 == first["parent_statement_sha256"]
+    assert v.predicate.human_review["reviewer"] == "Reviewer 7"
     # securesystemslib (DSSE reference implementation) accepts the new envelope's signature too.
     from securesystemslib.dsse import Envelope
     from securesystemslib.signer import SSlibKey
@@ -113,7 +114,7 @@ def test_disclose_again_writes_a_new_signed_record_without_reprocessing(made, tm
                           "purpose": "court order", "request_reference": "REF-9"})
     assert rec.path == a.folder / "disclosure-1"
     v = verify_package(rec.path, [made["signer"].public_key], video=a.video)  # the same redacted copy
-    assert v.predicate["parent"]["statement_sha256"] == hashlib.sha256(
+    assert v.predicate.parent.statement_sha256 == hashlib.sha256(
         verify_package(a.package, [made["signer"].public_key]).payload).hexdigest()
     entry = [e for e in log_of(rec.path) if e["kind"] == "disclosure"][0]
     assert {k: entry[k] for k in ("date", "recipient", "organisation", "purpose", "request_reference")} == {

@@ -27,7 +27,7 @@ from redact.errors import PackageError
 PREDICATE_TYPE = "urn:redact:skeleton-package:v1"
 DISCLOSURE_FIELDS = ("date", "recipient", "organisation", "purpose", "request_reference")
 TOP_LEVEL_KEYS = ("source", "model", "parameters", "privacy", "disclosure", "review", "faults", "plan", "audit",
-                  "parent", "tool", "created", "log")
+                  "parent", "human_review", "tool", "created", "log")
 _HEX64 = re.compile(r"[0-9a-f]{64}")
 _FPS = re.compile(r"(0|[1-9][0-9]*)/[1-9][0-9]*")
 # RFC 3339 date-time in UTC ("Z"), as in-toto's Timestamp field type requires.
@@ -353,7 +353,8 @@ class Predicate:
     """What a package's signature vouches for besides the file hashes (see the module docstring).
 
     `log` is None until write_package adds the log head at signing; a parsed (signed) predicate
-    always has it. `parent` is set for derived packages only; `plan` and `audit` for runs that had them.
+    always has it. `parent` is set for derived, reviewed and disclosure-record packages; `plan` and
+    `audit` for runs that had them; `human_review` for a copy reviewed with `redact review`.
     """
 
     source: SourceRecord
@@ -369,11 +370,13 @@ class Predicate:
     audit: AuditRecord | None = None
     parent: ParentRecord | None = None
     log: LogRecord | None = field(default=None)
+    human_review: Mapping[str, Any] | None = None  # a reviewed copy: as redact.review.outputs records it
 
     def __post_init__(self) -> None:
         object.__setattr__(self, "parameters", freeze(self.parameters))
         object.__setattr__(self, "privacy", freeze(self.privacy))
         object.__setattr__(self, "plan", None if self.plan is None else freeze(self.plan))
+        object.__setattr__(self, "human_review", None if self.human_review is None else freeze(self.human_review))
 
     def to_json(self) -> dict:
         """Plain JSON values in the fixed key set (encode with redact.jsonio.dumps)."""
@@ -388,6 +391,7 @@ class Predicate:
             "plan": thaw(self.plan),
             "audit": None if self.audit is None else self.audit.to_json(),
             "parent": None if self.parent is None else self.parent.to_json(),
+            "human_review": thaw(self.human_review),
             "tool": self.tool.to_json(),
             "created": self.created,
             "log": None if self.log is None else self.log.to_json(),
@@ -417,6 +421,7 @@ class Predicate:
             plan=f.object("plan", nullable=True),
             audit=sub("audit", AuditRecord.parse, nullable=True),
             parent=sub("parent", ParentRecord.parse, nullable=True),
+            human_review=f.obj_("human_review", nullable=True),
             tool=sub("tool", ToolRecord.parse),
             created=f.text("created", pattern=_TIME, what="an RFC 3339 UTC time ending in Z"),
             log=sub("log", LogRecord.parse, nullable=True),

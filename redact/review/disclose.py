@@ -18,13 +18,14 @@ import re
 import shutil
 import tempfile
 from collections.abc import Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 
 from redact import __version__
 from redact.errors import InputError, OutputError
 from redact.provenance.log import TransformLog, utc_now
 from redact.provenance.package import ENVELOPE, LOG, write_package
+from redact.provenance.predicate import Disclosure, ToolRecord
 
 PARENT_ENVELOPE = "parent.envelope.json"
 DISCLOSURE_DIR = re.compile(r"disclosure-([1-9][0-9]{0,5})")
@@ -48,7 +49,7 @@ def disclose_again(folder: Path, trusted_keys: Sequence, signer, disclosure: dic
         raise InputError("give at least one of --recipient, --organisation, --purpose, --request-ref")
     out = load_output(Path(folder), trusted_keys)
     pred = out.predicate
-    video_subject = out.verified.video_subject or {}
+    video_subject = out.verified.video_subject
     n = 1
     while os.path.lexists(out.folder / f"disclosure-{n}"):
         n += 1
@@ -63,16 +64,17 @@ def disclose_again(folder: Path, trusted_keys: Sequence, signer, disclosure: dic
         (staging / PARENT_ENVELOPE).write_bytes(out.files[ENVELOPE])
         log = TransformLog(staging / LOG)
         parent = {"statement_sha256": out.statement_sha256, "key_id": out.verified.key_id,
-                  "package": out.package.name, "video_sha256": video_subject.get("digest", {}).get("sha256"),
+                  "package": out.package.name, "video_sha256": None if video_subject is None else video_subject.sha256,
                   "envelope_sha256": hashlib.sha256(out.files[ENVELOPE]).hexdigest()}
         log.append("disclose-again", **{f"parent_{k}": v for k, v in parent.items()},
-                   human_review=pred.get("human_review") is not None,
+                   human_review=pred.human_review is not None,
                    note="no reprocessing: the same redacted copy and package are disclosed again")
         log.disclosure(**disclosure)
-        source = {k: v for k, v in (pred.get("source") or {}).items() if k != "frames_root"}
-        predicate = {"kind": "disclosure record", "source": source, "parent": parent,
-                     "disclosure": dict(disclosure), "human_review": pred.get("human_review"),
-                     "tool": {"name": "redact", "version": __version__}, "created": utc_now()}
+        # The parent's description of the source, model and run, with the new disclosure; no
+        # frames.sha256 travels in the record, so no frames root either.
+        predicate = replace(pred, source=replace(pred.source, frames_root=None), disclosure=Disclosure.of(disclosure),
+                            parent=out.parent_record(), tool=ToolRecord("redact", __version__), created=utc_now(),
+                            log=None)
         payload = write_package(staging, final, predicate, signer, video=out.video)
     finally:
         shutil.rmtree(partial, ignore_errors=True)

@@ -21,20 +21,20 @@ import re
 import shutil
 import tempfile
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 
 from redact import __version__, jsonio
-from redact.errors import InputError, OutputError, PackageError, VerificationFailed
+from redact.errors import InputError, OutputError, PackageError
 from redact.provenance.log import TransformLog, utc_now
-from redact.provenance.package import ENVELOPE, FRAMES, LOG, REVIEW, ROLE_FILE, open_package, write_package
+from redact.provenance.package import ENVELOPE, ENVELOPE_LIMIT, FRAMES, LOG, REVIEW, open_package, write_package
+from redact.provenance.predicate import Disclosure, ParentRecord, Predicate, ToolRecord, thaw
 from redact.review.state import RangeReview, ReviewState
 
 VIDEO = "redacted.mp4"
 PACKAGE = "package"
 CORRECTIONS = "corrections.json"
 REVIEW_DIR = re.compile(r"review-([1-9][0-9]{0,5})")
-CARRIED = ("source", "model", "parameters", "review", "faults", "plan", "privacy")
 READ_LIMIT = 512 * 1024 * 1024  # bytes of one package file read whole (common practice)
 
 
@@ -45,20 +45,26 @@ class LoadedOutput:
     folder: Path
     video: Path
     package: Path
-    verified: object  # redact.provenance.verify.VerifiedPackage
+    verified: object  # redact.provenance.contents.VerifiedPackage
     files: dict[str, bytes]
 
     @property
-    def predicate(self) -> dict:
+    def predicate(self) -> Predicate:
         return self.verified.predicate
 
     @property
     def frames(self) -> int:
-        return int(self.predicate["source"]["frames"])
+        return int(self.predicate.source.frames)
 
     @property
     def statement_sha256(self) -> str:
-        return hashlib.sha256(self.verified.payload).hexdigest()
+        return self.verified.statement_sha256
+
+    def parent_record(self) -> ParentRecord:
+        """What a package made from this one records as its parent."""
+        log = self.predicate.log
+        return ParentRecord(self.statement_sha256, self.verified.key_id, None if log is None else log.head,
+                            thaw(self.predicate.privacy))
 
     def frame_digests(self) -> list[str]:
         return self.files[FRAMES].decode("ascii").split()
@@ -73,7 +79,7 @@ class LoadedOutput:
     def initial_state(self) -> ReviewState:
         """The review to start from: this copy's recorded review when it is itself a reviewed copy."""
         state = ReviewState(self.frames, self.ranges())
-        rec = self.predicate.get("human_review")
+        rec = thaw(self.predicate.human_review)
         if isinstance(rec, dict) and isinstance(rec.get("ranges"), list) and len(rec["ranges"]) == len(state.ranges):
             ranges = tuple(RangeReview(r.start, r.end, r.reasons, str(x.get("status", "not_checked")),
                                        str(x.get("note", ""))) for r, x in zip(state.ranges, rec["ranges"]))
@@ -83,13 +89,6 @@ class LoadedOutput:
             state = ReviewState(state.frames, state.ranges, state.reviewer,
                                 {k: doc[k] for k in ("moving_boxes", "regions", "obscure_frames") if k in doc})
         return state
-
-
-def _read_checked(reader, name: str, subjects: dict[str, dict]) -> bytes:
-    data = reader.read(name, READ_LIMIT)
-    if hashlib.sha256(data).hexdigest() != subjects[name]["digest"]["sha256"]:
-        raise VerificationFailed([f"{name}: changed after verification (SHA-256 differs from the signed one)"])
-    return data
 
 
 def load_output(folder: Path, trusted_keys: Sequence) -> LoadedOutput:
@@ -105,18 +104,17 @@ def load_output(folder: Path, trusted_keys: Sequence) -> LoadedOutput:
     if not pkg.exists() or not video.is_file():
         raise InputError(f"{folder}: expected {VIDEO} and {PACKAGE}/ from `redact process` (or `redact review`)")
     verified = verify_package(pkg, trusted_keys, video=video)
-    subjects = {s["name"]: s for s in verified.subjects if s["annotations"]["role"] == ROLE_FILE}
     from redact.review.store import REGIONS
 
-    if REGIONS not in subjects:
+    if not verified.has(REGIONS):
         raise InputError(f"{pkg}: holds no stored regions ({REGIONS}); it was made by an older version: "
                          "process the video again to review it here")
     files = {}
-    with open_package(pkg) as reader:
-        for name in sorted(subjects):
-            if name not in (ENVELOPE, LOG):
-                files[name] = _read_checked(reader, name, subjects)
-        files[ENVELOPE] = reader.read(ENVELOPE, 16 * 1024 * 1024)
+    for name in sorted(verified.statement.files):  # every read re-hashed against the signed subject
+        if name not in (ENVELOPE, LOG):
+            files[name] = verified.read_bytes(name, READ_LIMIT)
+    with open_package(pkg) as reader:  # the envelope is not a subject: its signatures were just checked
+        files[ENVELOPE] = reader.read(ENVELOPE, ENVELOPE_LIMIT)
     return LoadedOutput(folder, video, pkg, verified, files)
 
 
@@ -178,8 +176,8 @@ def apply_review(parent: LoadedOutput, state: ReviewState, source: Path, signer,
         pred = parent.predicate
         stored = parse_regions(io.BytesIO(parent.files[REGIONS]), parent.frames)
         video_tmp = staging / VIDEO
-        result = rerender(Path(source), stored, parent.frame_digests(), pred["source"]["sha256"],
-                          pred.get("parameters") or {}, video_tmp, plan=plan, progress=progress)
+        result = rerender(Path(source), stored, parent.frame_digests(), pred.source.sha256,
+                          thaw(pred.parameters), video_tmp, plan=plan, progress=progress)
         pkg = staging / PACKAGE
         pkg.mkdir()
         copied = []
@@ -194,10 +192,11 @@ def apply_review(parent: LoadedOutput, state: ReviewState, source: Path, signer,
             (pkg / CORRECTIONS).write_bytes(plan_bytes)
         when = reviewed_at or utc_now()
         log = TransformLog(pkg / LOG)
-        parent_log = pred.get("log") if isinstance(pred.get("log"), dict) else {}
+        video_subject = parent.verified.video_subject
         parent_rec = {"statement_sha256": parent.statement_sha256, "key_id": parent.verified.key_id,
-                      "log_head": parent_log.get("head"), "log_entries": parent_log.get("entries"),
-                      "video_sha256": (parent.verified.video_subject or {}).get("digest", {}).get("sha256")}
+                      "log_head": None if pred.log is None else pred.log.head,
+                      "log_entries": None if pred.log is None else pred.log.entries,
+                      "video_sha256": None if video_subject is None else video_subject.sha256}
         log.append("review-parent", **{f"parent_{k}": v for k, v in parent_rec.items()}, copied=sorted(copied),
                    note="new log; the parent's log stays with the parent package")
         log.append("corrections", count=state.correction_count,
@@ -210,19 +209,15 @@ def apply_review(parent: LoadedOutput, state: ReviewState, source: Path, signer,
         log.append("rerender", frames=result.frames, source_sha256=result.source_sha256,
                    source_frames_checked="every frame digest matched frames.sha256",
                    regions_sha256=hashlib.sha256(parent.files[REGIONS]).hexdigest(), model="not run",
-                   encoder="libx264", crf=int((pred.get("parameters") or {}).get("crf", 20)))
+                   encoder="libx264", crf=int(pred.parameters.get("crf", 20)))
         summary = {k: review[k] for k in ("reviewer", "ranges_checked", "ranges_total", "corrections",
                                           "whole_video_watched", "frames_watched", "frames")}
         summary["ranges"] = review["ranges"]
         summary["reviewed_at"] = when
-        predicate = {k: pred[k] for k in CARRIED if k in pred}
-        predicate["source"] = {k: v for k, v in predicate.get("source", {}).items() if k != "frames_root"}
-        predicate.update({"parent": parent_rec, "human_review": summary,
-                          "corrections": {"count": state.correction_count,
-                                          "sha256": None if plan_bytes is None else
-                                          hashlib.sha256(plan_bytes).hexdigest()},
-                          "disclosure": {}, "tool": {"name": "redact", "version": __version__},
-                          "created": utc_now()})
+        summary["corrections_sha256"] = None if plan_bytes is None else hashlib.sha256(plan_bytes).hexdigest()
+        predicate = replace(pred, source=replace(pred.source, frames_root=None), disclosure=Disclosure.of(None),
+                            parent=parent.parent_record(), human_review=summary,
+                            tool=ToolRecord("redact", __version__), created=utc_now(), log=None)
         signed = staging / "signed"
         payload = write_package(pkg, signed, predicate, signer, video=video_tmp)
         try:

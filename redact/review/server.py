@@ -75,7 +75,7 @@ class ReviewSession:
         self.job: dict = {"state": "idle"}
         self._load(load_output(latest(Path(folder)), self.trusted))
         digest, _ = sha256_file(self.source)
-        if digest != self.output.predicate["source"]["sha256"]:
+        if digest != self.output.predicate.source.sha256:
             raise RedactError(f"{self.source}: not the source this output was made from (SHA-256 differs)")
         self.source_frames = FrameSource(self.source)
 
@@ -89,7 +89,7 @@ class ReviewSession:
 
     def page_state(self) -> dict:
         o = self.output
-        src = o.predicate["source"]
+        src = o.predicate.source
         faults = []
         from redact import jsonio
         from redact.provenance.package import QUALITY
@@ -99,14 +99,14 @@ class ReviewSession:
             if row.get("fault") is True:
                 faults.append(int(row.get("frame", n)))
         return {
-            "folder": o.folder.name, "frames": o.frames, "fps": src.get("fps"), "width": src.get("width"),
-            "height": src.get("height"), "source_name": src.get("name"),
+            "folder": o.folder.name, "frames": o.frames, "fps": src.fps, "width": src.width,
+            "height": src.height, "source_name": src.name,
             "pts": self.redacted.pts, "time_base": str(self.info.time_base),
             "ranges": [{"start": r.start, "end": r.end, "reasons": list(r.reasons),
                         "why": [REASON_WORDS.get(x, x.replace("_", " ")) for x in r.reasons]}
                        for r in self.state.ranges],
             "failed_frames": faults, "statuses": STATUSES, "review": self.state.page_doc(),
-            "reviewed": o.predicate.get("human_review") is not None, "job": self.job,
+            "reviewed": o.predicate.human_review is not None, "job": self.job,
         }
 
     def update(self, doc: dict) -> dict:
