@@ -219,3 +219,15 @@ def test_review_cli_bad_inputs_are_one_line_errors(made, tmp_path, clip_factory)
                                   "--trusted-key", str(tmp_path / "k.pub"), "--signing-key", str(tmp_path / "k.pem")],
                            env=env)
     assert r.exit_code == 1 and "Traceback" not in r.output
+
+
+def test_derive_leaves_the_stored_regions_out(made, tmp_path):
+    """De-identified copies for researchers do not carry the outlines in source pixels (docs/review.md)."""
+    from redact.skeletons.derive import derive
+    from redact.skeletons.privacy import PrivacyOptions
+
+    res = derive(made["parent"].package, tmp_path / "shared", [made["signer"].public_key], made["signer"],
+                 PrivacyOptions(coordinates="frame"))
+    v = verify_package(res.path, [made["signer"].public_key])
+    assert "regions.jsonl.gz" not in v.statement.files and not (res.path / "regions.jsonl.gz").exists()
+    assert log_of(res.path)[0]["not_copied"] == ["regions.jsonl.gz"]

@@ -225,7 +225,7 @@ def derive(parent: Path, out: Path, trusted_keys: Sequence, signer, options: Pri
         log.append("derive", parent_statement_sha256=parent_rec.statement_sha256,
                    parent_key_id=parent_rec.key_id, parent_log_head=parent_rec.log_head,
                    parent_log_entries=None if pred.log is None else pred.log.entries, copied=copied,
-                   not_copied=[n for n in NOT_COPIED if n in parent.statement.files],
+                   not_copied=[n for n in NOT_COPIED if n in verified.statement.files],
                    note="new log; the parent's log stays with the parent package")
         summary = rewrite_skeleton_files(staging, options, frame_size, fps)
         record = options.to_record()
