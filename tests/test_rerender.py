@@ -63,7 +63,8 @@ def run(request, crossing_clip, tmp_path_factory):
     with pytest.MonkeyPatch.context() as mp:
         spy.patch(mp)
         result = process_video(crossing_clip.path, d / "out", signer, settings)
-    return {"dir": d, "signer": signer, "result": result, "clip": crossing_clip, "encoded": spy.frames["redacted.mp4"]}
+    return {"dir": d, "signer": signer, "result": result, "clip": crossing_clip, "encoded": spy.frames["redacted.mp4"],
+            "style": request.param}
 
 
 def _rerender(run, out, source=None, plan=None):
@@ -84,8 +85,12 @@ def test_regions_are_a_signed_gzip_file_with_one_run_per_unchanged_stretch(run):
     assert all(b[0] == a[1] + 1 for a, b in zip(runs, runs[1:]))  # contiguous, no frame twice
     st = json.loads(__import__("base64").b64decode(json.loads((pkg / "envelope.json").read_bytes())["payload"]))
     assert REGIONS in {s["name"] for s in st["subject"]}  # signed like every package file
-    kinds = {op["k"] for x in lines[1:] for op in json.loads(x)["ops"]}
-    assert {"person", "lookback"} <= kinds  # the astronaut enters from off-screen: look-back used
+    docs = [json.loads(x) for x in lines[1:]]
+    why = {w["k"] for d in docs for r in d["under"] + d["over"] for w in r["why"]}
+    assert {"person", "lookback"} <= why  # the astronaut enters from off-screen: look-back used
+    states = {w.get("state") for d in docs for r in d["under"] for w in r["why"] if w["k"] == "person"}
+    assert states <= {"observed", "predicted"} and "observed" in states
+    assert any(d["fig"] for d in docs) == (run["style"] == "figure")  # stick figures stored where drawn
 
 
 def test_rerender_without_corrections_gives_the_same_frames(run, tmp_path, monkeypatch):
@@ -126,7 +131,7 @@ def test_a_changed_regions_file_fails_verification(run, tmp_path):
     shutil.copytree(run["dir"] / "out", copy)
     p = copy / "package" / REGIONS
     lines = gzip.decompress(p.read_bytes()).splitlines()
-    lines[1] = lines[1].replace(b'"k":"person"', b'"k":"figures"', 1)  # drop one person's region
+    lines[1] = lines[1].replace(b'"k":"person"', b'"k":"motion"', 1)  # another reason for one region
     p.write_bytes(gzip.compress(b"\n".join(lines) + b"\n", mtime=0))
     with pytest.raises(VerificationFailed, match="regions.jsonl.gz: SHA-256 does not match"):
         load_output(copy, [run["signer"].public_key])

@@ -3,9 +3,10 @@
 decode → each frame's stored obscure record (redact.review.store) plus the corrections (a
 redaction plan: moving boxes, fixed areas, whole frames; redact.redaction.plan), added over
 everything with reason "review" → render (redact.redaction.render.render_record, the pipeline's
-own pure renderer) → encode. With no corrections the frames are the same as the original run's. The source must be the signed one: its per-frame digests are
-compared with the package's frames.sha256 while decoding, and its file hash at the end; nothing
-is moved into place unless both match (fail closed). Corrections only ever add obscured pixels.
+own pure renderer) → encode. With no corrections the frames are the same as the original run's.
+The source must be the signed one: its per-frame digests are compared with the package's
+frames.sha256 while decoding, and its file hash at the end; nothing is moved into place unless
+both match (fail closed). Corrections only ever add obscured pixels.
 """
 
 from __future__ import annotations
