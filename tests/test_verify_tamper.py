@@ -457,14 +457,16 @@ def test_rebuilt_tar_helper_is_faithful(base, tmp_path):
     assert same.read_bytes() == base["tar"]["path"].read_bytes()
 
 
-def test_securesystemslib_refuses_what_we_refuse_for_padding(base):
+def test_securesystemslib_refuses_what_we_refuse_for_padding(edit_base):
     # Outside check: securesystemslib (and the DSSE reference implementation it follows) decodes with
-    # base64 validate=True, which refuses a value without its padding too.
+    # base64 validate=True, which refuses a value without its padding too. edit_base's payload
+    # always ends in padding (its length is not a multiple of 3), whatever the predicate holds.
     import binascii
 
     from securesystemslib.dsse import Envelope
 
-    env = json.loads((base["dir"]["path"] / "envelope.json").read_bytes())
+    env = json.loads((edit_base["dir"]["path"] / "envelope.json").read_bytes())
+    assert env["payload"].endswith("=")
     env["payload"] = env["payload"].rstrip("=")
     with pytest.raises(binascii.Error):
         Envelope.from_dict(env)
