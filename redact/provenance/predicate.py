@@ -421,7 +421,7 @@ class Predicate:
             plan=f.object("plan", nullable=True),
             audit=sub("audit", AuditRecord.parse, nullable=True),
             parent=sub("parent", ParentRecord.parse, nullable=True),
-            human_review=f.obj_("human_review", nullable=True),
+            human_review=f.object("human_review", nullable=True),
             tool=sub("tool", ToolRecord.parse),
             created=f.text("created", pattern=_TIME, what="an RFC 3339 UTC time ending in Z"),
             log=sub("log", LogRecord.parse, nullable=True),
