@@ -217,8 +217,8 @@ def test_shell_completion_follows_clicks_documented_mechanism():
 
 def test_process_without_report_still_says_what_to_open_first(crossing_clip, tmp_path, key):
     out = tmp_path / "o"
-    r = run("process", crossing_clip.path, "--out", out, "--signing-key", key, "--no-report", "--quiet",
-            "--input-size", "320")
+    r = r_text = run("process", crossing_clip.path, "--out", out, "--signing-key", key, "--no-report", "--quiet",
+                     "--input-size", "320")
     assert r.exit_code == 0, r.output
     assert sorted(p.name for p in out.iterdir()) == ["package", "redacted.mp4"]
     tail = r.stdout[r.stdout.index("Open first:"):]
@@ -226,6 +226,31 @@ def test_process_without_report_still_says_what_to_open_first(crossing_clip, tmp
     assert f"--trusted-key {key.with_name('t.public.pem')}" in tail  # the public half beside --signing-key
     assert "pseudonymised" in tail
     again = run("process", crossing_clip.path, "--out", tmp_path / "p", "--signing-key", key, "--quiet",
-                "--input-size", "320")
+                "--input-size", "320", "--json")
     assert again.exit_code == 0 and (tmp_path / "p" / "report.html").is_file()
-    assert "Open first:" in again.stdout and str(tmp_path / "p" / "report.html") in again.stdout
+    doc = json.loads(again.stdout)
+    assert doc["open_first"][0]["open"] == str(tmp_path / "p" / "report.html")
+
+    # One shape for flagged ranges: process --json, review.json and inspect --json agree exactly,
+    # and the terminal says the same reasons in plain words.
+    review = json.loads((tmp_path / "p" / "package" / "review.json").read_text())["ranges"]
+    assert review, "the crossing clip has a dim stretch and people entering: something is flagged"
+    assert doc["review_ranges"] == review
+    ins = run("inspect", tmp_path / "p" / "package", "--trusted-key", key.with_name("t.public.pem"), "--json")
+    assert ins.exit_code == 0, ins.output
+    summary = json.loads(ins.stdout)
+    assert summary["flagged"] == review
+    for r in review:
+        assert set(r) == {"frames", "seconds", "reasons", "explained"} and len(r["explained"]) == len(r["reasons"])
+        (a, b), (ta, tb) = r["frames"], r["seconds"]
+        assert f"frames {a}-{b} ({ta:.2f}-{tb:.2f} s): {'; '.join(r['explained'])}" in r_text.stdout
+        assert not any("_" in w for w in r["explained"])  # words, not codes
+
+    # inspect separates detections from positions the tracker predicted (checked against the rows)
+    states = [p["state"] for line in (tmp_path / "p" / "package" / "skeletons.jsonl").read_text().splitlines()
+              for p in json.loads(line)["people"]]
+    c = summary["counts"]
+    assert c["detections"] == states.count("observed") and c["predicted"] == states.count("predicted")
+    assert c["predicted"] > 0 and c["people"] == len(states)
+    text = run("inspect", tmp_path / "p" / "package").stdout
+    assert f"{c['detections']} person detections, {c['predicted']} positions predicted" in text

@@ -119,11 +119,14 @@ def test_inspect(pkg):
     r = run("inspect", pkg["path"], "--trusted-key", pkg["pub"], "--json")
     assert r.exit_code == 0, r.stderr
     doc = json.loads(r.stdout)
-    assert doc["verified"] and doc["counts"] == {"frames": 6, "people": 10, "tracks": 2, "fault_frames": 1}
-    assert doc["flagged"] == [{"start": 4, "end": 5, "reason": "track lost"}]
+    assert doc["verified"] and doc["counts"] == {"frames": 6, "people": 10, "detections": 10, "predicted": 0,
+                                                 "tracks": 2, "fault_frames": 1}
+    # the one shape of a flagged range, as review.json holds it
+    assert doc["flagged"] == [{"frames": [4, 5], "seconds": [0.16, 0.2], "reasons": ["track lost"],
+                               "explained": ["track lost"]}]
     t = run("inspect", pkg["path"])
     assert t.exit_code == 0 and "NOT VERIFIED" in t.stderr and "unverified" in t.stdout
-    assert "frames 4–5: track lost" in t.stdout and "test-model" in t.stdout
+    assert "frames 4-5 (0.16-0.20 s): track lost" in t.stdout and "test-model" in t.stdout
 
 
 def test_inspect_with_wrong_key_fails(pkg, tmp_path):

@@ -303,7 +303,7 @@ def test_rewrite_keeps_tracks_quality_and_review_consistent(tmp_path):
     assert len(q) == 10 and [x["t"] for x in q] == pytest.approx([i / 25 for i in range(10)], abs=1e-9)
     assert q[3]["luma_mean"] == 90.5 and q[3]["people"] == 2
     rv = json.loads((pkg / "review.json").read_bytes())
-    assert rv["ranges"][0]["t_start"] == pytest.approx(0.12) and rv["ranges"][0]["frame_start"] == 103
+    assert rv["ranges"][0]["seconds"] == pytest.approx([0.12, 0.24]) and rv["ranges"][0]["frames"] == [103, 106]
     assert (s["rows_out"], s["tracks_in"], s["tracks_out"], s["quality_rows_retimed"]) == (4, 3, 3, 10)
     assert s["rows_people_reordered"] >= 1
 

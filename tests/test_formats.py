@@ -87,7 +87,7 @@ def test_tracks_quality_review_round_trip(packages, which):
     data = (pkg / "review.json").read_bytes()
     doc = review_json.decode_review(data)
     assert review_json.encode_review(doc) == data
-    assert [r.frame_start for r in doc.ranges] == [r["frame_start"] for r in json.loads(data)["ranges"]]
+    assert [r.frame_start for r in doc.ranges] == [r["frames"][0] for r in json.loads(data)["ranges"]]
 
 
 @pytest.mark.parametrize("which", ["process", "frame"])
@@ -180,8 +180,11 @@ def test_other_files_refuse_what_they_would_not_write():
     with pytest.raises(PackageError, match="fields"):
         quality_jsonl.decode_quality_line(b'{"frame":0,"luma":0.5}\n')
     doc = review_json.encode_review(review_json.ReviewFile((review_json.ReviewRange(3, 2, 0.1, 0.1, ("dark",)),)))
-    with pytest.raises(PackageError, match="frame_end is before frame_start"):
+    with pytest.raises(PackageError, match="last frame is before the first"):
         review_json.decode_review(doc)
+    good = review_json.encode_review(review_json.ReviewFile((review_json.ReviewRange(2, 3, 0.1, 0.1, ("dark",)),)))
+    with pytest.raises(PackageError, match="reasons in words"):  # the words must be the reasons' own
+        review_json.decode_review(good.replace(b'"dark picture"', b'"fine picture"'))
     with pytest.raises(PackageError, match="review ranges"):
         review_json.decode_review(b'{"ranges": []}\n')
     entry = encode_entry(0, "00" * 32, "2025-01-01T00:00:00.000000Z", "decode", {"frames": 3})

@@ -105,8 +105,8 @@ def test_every_user_of_ranges_says_the_same():
     assert _spans(frames) == "2–4, 8, 10–11"
     face = ((0.0, 0.0, 10.0, 10.0), 0.9)
     audits = tuple(FrameAudit(f, f / 25, (face,) if f in frames else (), ()) for f in range(14))
-    assert finding_ranges(audits, 1) == ((2, 4), (8, 8), (10, 11))
-    assert finding_ranges(audits, 2) == ((2, 4), (8, 11))
+    assert finding_ranges(audits, 1) == ((2, 4, ("face",)), (8, 8, ("face",)), (10, 11, ("face",)))
+    assert finding_ranges(audits, 2) == ((2, 4, ("face",)), (8, 11, ("face",)))
 
 
 def test_privacy_keeps_every_track_field_it_does_not_change(monkeypatch):

@@ -278,8 +278,10 @@ def test_summary_counts(tmp_path, signer):
     s = summarise_package(p["path"], [signer.public_key])
     assert s["verified"] and s["key_id"] == signer.key_id
     # synthetic_rows: 6 frames, 2 people in frames 0-3 and 1 in frames 4-5, ids 1 and 2, frame 5 a fault
-    assert s["counts"] == {"frames": 6, "people": 10, "tracks": 2, "fault_frames": 1}
-    assert s["flagged"] == [{"start": 4, "end": 5, "reason": "track lost"}]
+    assert s["counts"] == {"frames": 6, "people": 10, "detections": 10, "predicted": 0, "tracks": 2,
+                           "fault_frames": 1}
+    assert s["flagged"] == [{"frames": [4, 5], "seconds": [0.16, 0.2], "reasons": ["track lost"],
+                             "explained": ["track lost"]}]
     assert s["source"]["frames"] == N_FRAMES and s["model"]["id"] == "test-model"
     u = summarise_package(p["path"])
     assert not u["verified"] and u["counts"] == s["counts"]

@@ -427,7 +427,7 @@ def test_end_to_end_keep_one_person_visible(planned):
     review = json.loads((result.package / "review.json").read_text())
 
     def flagged_for_overlap(frame: int) -> bool:
-        return any(r["frame_start"] <= frame <= r["frame_end"] and "kept_overlap" in r["reasons"]
+        return any(r["frames"][0] <= frame <= r["frames"][1] and "kept_overlap" in r["reasons"]
                    for r in review["ranges"])
 
     def ssim(a, b) -> float:

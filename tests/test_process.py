@@ -125,7 +125,7 @@ def test_missed_frames_coast_and_are_flagged(processed):
         r = frame_rows[i]
         assert len(r.tracks) >= 1 and not r.tracks.observed.any(), f"frame {i} should only have predicted people"
     review = json.loads((result.package / "review.json").read_text())
-    flagged = {f for rng in review["ranges"] for f in range(rng["frame_start"], rng["frame_end"] + 1)}
+    flagged = {f for rng in review["ranges"] for f in range(rng["frames"][0], rng["frames"][1] + 1)}
     assert MISS_FRAMES <= flagged
 
 

@@ -167,7 +167,9 @@ def test_encode_fixed_decimals():
         b'{"frame":3,"t":0.100000,"luma_mean":12.35,"luma_std":0.00,"sharpness":100.00,"people":2,'
         b'"observed":1,"predicted":1,"mean_conf":null,"count_drop":0,"fault":false,"reasons":["coasting"]}\n')
     doc = json.loads(review_document([ReviewRange(1, 4, 0.04, 0.16, ("dark",))], ReviewRules()))
-    assert doc["ranges"] == [{"frame_start": 1, "frame_end": 4, "t_start": 0.04, "t_end": 0.16, "reasons": ["dark"]}]
+    assert doc["version"] == 2
+    assert doc["ranges"] == [{"frames": [1, 4], "seconds": [0.04, 0.16], "reasons": ["dark"],
+                              "explained": ["dark picture"]}]
 
 
 def test_rules_are_checked():

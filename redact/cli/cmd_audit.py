@@ -39,18 +39,19 @@ def _print_report(report) -> None:
                f"{report.frames_scanned} scanned: {every})")
     click.echo(f"faces found: {report.faces}  persons found: {report.persons}  "
                f"(face score >= {report.settings['face_score']}, person score >= {report.settings['pose_score']})")
-    if report.persons_on_fill:
-        click.echo(f"persons seen on the redaction fill (stick figures; not counted): {report.persons_on_fill}")
+    if report.persons_on_fill or report.faces_on_fill:
+        click.echo(f"seen on the redaction's own fill and stick figures (not counted): "
+                   f"{report.persons_on_fill} person(s), {report.faces_on_fill} face(s)")
     if report.source is not None:
         click.echo(f"source: {report.source_faces} face(s) found in {report.source}; "
                    f"{report.survived} survived in the redacted video")
     if report.stopped_early:
         click.echo(f"decoding stopped early, the rest was not checked: {report.stopped_early}")
     if report.ranges:
-        t_of = {f.frame: f.t for f in report.frames}
         click.echo(f"frames with findings ({len(report.ranges)} range(s)):")
-        for a, b in report.ranges:
-            click.echo(f"  frames {a}-{b} ({t_of[a]:.2f}-{t_of[b]:.2f} s)")
+        for r in report.range_records():
+            (a, b), (ta, tb) = r["frames"], r["seconds"]
+            click.echo(f"  frames {a}-{b} ({ta:.2f}-{tb:.2f} s): {'; '.join(r['explained'])}")
     click.echo("result: " + ("nothing found above the thresholds" if report.passed
                              else "FOUND people or faces that may be identifiable; review the ranges above"))
 
@@ -83,8 +84,8 @@ def audit(redacted: Path, source: Path | None, step: int, face_score: float | No
     """Look for faces and people still detectable in a redacted video.
 
     A face detector of another model family (MediaPipe BlazeFace, full range, scanning the frame
-    and overlapping tiles) and the pose model at a larger input size scan the video. People the
-    pose model sees on the redaction's own grey fill (its stick figures) are listed but not
+    and overlapping tiles) and the pose model at a larger input size scan the video. People and
+    faces the detectors see in the redaction's own grey fill and stick figures are listed but not
     counted.
     """
     from redact.redaction.audit import AuditSettings, audit_video

@@ -45,11 +45,15 @@ def inspect(package: Path, trusted_keys: tuple[Path, ...], as_json: bool) -> Non
     click.echo(f"          sha256 {src.get('sha256')}")
     click.echo(f"model:    {model.get('id')}  licence {model.get('licence')}")
     click.echo(f"created:  {summary['created']}  by {summary['tool']}")
-    click.echo(f"counts:   {counts['frames']} frame rows, {counts['people']} person detections, "
-               f"{counts['tracks']} tracks, {counts['fault_frames']} fault frames")
+    click.echo(f"counts:   {counts['frames']} frame rows, {counts['tracks']} tracks, "
+               f"{counts['fault_frames']} fault frames")
+    click.echo(f"people:   {counts['detections']} person detections, {counts['predicted']} positions predicted "
+               f"by the tracker between detections ({counts['people']} person rows in all)")
     click.echo(f"log:      {summary['log_entries']} entries")
     flagged = summary["flagged"]
     click.echo(f"flagged for review: {len(flagged)} range(s)")
     for r in flagged:
-        click.echo(f"  frames {r.get('start')}–{r.get('end')}: {r.get('reason', '')}")
+        (a, b), (ta, tb) = r["frames"], r["seconds"]
+        when = f" ({ta:.2f}-{tb:.2f} s)" if all(isinstance(t, (int, float)) for t in (ta, tb)) else ""
+        click.echo(f"  frames {a}-{b}{when}: {'; '.join(r['explained']) or 'no reason given'}")
     click.echo("Skeleton data is pseudonymised, not anonymous; flagged frames need human review.", err=True)

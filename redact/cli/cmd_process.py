@@ -29,8 +29,7 @@ def _summary(result, report: Path | None = None, open_first: list[dict] | None =
         "open_first": open_first or [],
         "video": str(result.video), "package": str(result.package), "frames": result.frames,
         "tracks": result.tracks, "fault_frames": len(result.fault_frames),
-        "review_ranges": [{"frames": [r.frame_start, r.frame_end], "seconds": [r.t_start, r.t_end],
-                           "reasons": list(r.reasons)} for r in result.review],
+        "review_ranges": [r.as_record() for r in result.review],
         "frames_per_second": round(result.fps, 2), "seconds": round(result.seconds, 2),
         "stopped_early": result.stopped_early, "key_id": result.key_id, "source_sha256": result.source_sha256,
         "audit": result.audit,
@@ -46,7 +45,7 @@ def _print_summary(result) -> None:
     if result.review:
         click.echo(f"review before disclosure: {len(result.review)} range(s) flagged:")
         for r in result.review:
-            click.echo(f"  frames {r.frame_start}-{r.frame_end} ({r.t_start:.2f}-{r.t_end:.2f} s): {', '.join(r.reasons)}")
+            click.echo(f"  {r.describe()}")
     else:
         click.echo("no range flagged; a person must still review the whole video before disclosure")
 

@@ -1,10 +1,14 @@
 """review.json: the frame ranges a person must review first, and the rules that flagged them.
 
-    {"frames": 300, "kind": "review ranges", "note": "…", "ranges": [{"frame_end": 40,
-     "frame_start": 31, "reasons": ["coasting"], "t_end": 1.6, "t_start": 1.24}], "rules": {…},
-     "version": 1}
+    {"frames": 300, "kind": "review ranges", "note": "…", "ranges": [{"explained": ["a person
+     followed without being detected"], "frames": [31, 40], "reasons": ["coasting"], "seconds":
+     [1.24, 1.6]}], "rules": {…}, "version": 2}
 
 JSON with sorted keys, indented by two spaces, and a final newline; times rounded to 6 decimals.
+Each range has the one shape every command shows flagged ranges in (`range_record`: review.json,
+`process --json`, `inspect --json`, `audit --json`): inclusive frames, seconds, reason codes and
+the same reasons in plain words (REASON_WORDS, also what the terminal and the report say).
+Version 1 had frame_start, frame_end, t_start, t_end and reasons, and no words.
 The ranges are a guide, not a clearance: a person must review the whole redacted video before any
 disclosure. How frames are flagged: redact.redaction.quality.
 """
@@ -12,7 +16,7 @@ disclosure. How frames are flagged: redact.redaction.quality.
 from __future__ import annotations
 
 import math
-from collections.abc import Mapping
+from collections.abc import Iterable, Mapping
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -22,12 +26,44 @@ from redact.errors import PackageError
 NAME = "review.json"
 LIMIT = 64 * 1024 * 1024  # bytes; common practice
 KIND = "review ranges"
-VERSION = 1
+VERSION = 2
 REVIEW_NOTE = ("These ranges are where automated redaction is most likely to have missed someone. "
                "They are a guide, not a clearance: a person must review the whole redacted video "
                "before any disclosure.")
 TIME_DECIMALS = 6
-_RANGE_KEYS = {"frame_start", "frame_end", "t_start", "t_end", "reasons"}
+_RANGE_KEYS = {"frames", "seconds", "reasons", "explained"}
+
+#: Each reason a range can be flagged for, in plain words.
+REASON_WORDS: dict[str, str] = {
+    "blurred": "blurred picture",
+    "coasting": "a person followed without being detected",
+    "count_drop": "fewer people detected than just before",
+    "dark": "dark picture",
+    "fault": "frame failed and was fully obscured",
+    "kept_overlap": "a person left visible overlaps someone obscured",
+    "low_confidence": "detector unsure of body points",
+    "low_contrast": "low contrast",
+    # what the independent audit (redact.redaction.audit) finds
+    "face": "a face found in the redacted video",
+    "person": "a person found on picture pixels (not on the redaction's own fill)",
+    "face_survived": "a face of the source is still there in the redacted video",
+}
+
+
+def in_words(reasons: Iterable) -> list[str]:
+    """The plain words of each reason code (an unknown code is shown as it is)."""
+    return [REASON_WORDS.get(str(r), str(r)) for r in reasons]
+
+
+def range_record(first: int, last: int, t_first: float, t_last: float, reasons: Iterable) -> dict:
+    """One flagged range in the shape used everywhere: {"frames": [first, last] (inclusive),
+    "seconds": [t_first, t_last] (6 decimals), "reasons": [codes], "explained": [plain words]}."""
+    if not (math.isfinite(t_first) and math.isfinite(t_last)):
+        raise ValueError("review range times must be finite")
+    codes = [str(r) for r in reasons]
+    return {"frames": [int(first), int(last)],
+            "seconds": [round(float(t_first), TIME_DECIMALS), round(float(t_last), TIME_DECIMALS)],
+            "reasons": codes, "explained": in_words(codes)}
 _KEYS = {"kind", "version", "note", "frames", "rules", "ranges"}
 
 
@@ -40,6 +76,15 @@ class ReviewRange:
     t_start: float
     t_end: float
     reasons: tuple[str, ...]
+
+    def as_record(self) -> dict:
+        """This range in the shared shape (`range_record`)."""
+        return range_record(self.frame_start, self.frame_end, self.t_start, self.t_end, self.reasons)
+
+    def describe(self) -> str:
+        """One line for people: frames, seconds and the reasons in plain words."""
+        return (f"frames {self.frame_start}-{self.frame_end} ({self.t_start:.2f}-{self.t_end:.2f} s): "
+                + "; ".join(in_words(self.reasons)))
 
 
 @dataclass(frozen=True)
@@ -55,13 +100,7 @@ class ReviewFile:
 
 def encode_review(doc: ReviewFile) -> bytes:
     """The review.json bytes (the only writer of the file)."""
-    ranges = []
-    for r in doc.ranges:
-        if not (math.isfinite(r.t_start) and math.isfinite(r.t_end)):
-            raise ValueError("review range times must be finite")
-        ranges.append({"frame_start": int(r.frame_start), "frame_end": int(r.frame_end),
-                       "t_start": round(float(r.t_start), TIME_DECIMALS),
-                       "t_end": round(float(r.t_end), TIME_DECIMALS), "reasons": list(r.reasons)})
+    ranges = [r.as_record() for r in doc.ranges]
     body = {"kind": KIND, "version": VERSION, "note": doc.note, "frames": doc.frames, "rules": dict(doc.rules),
             "ranges": ranges}
     return jsonio.dumps_indented(body) + b"\n"
@@ -83,18 +122,20 @@ def decode_review(data: bytes, what: str = NAME) -> ReviewFile:
         rw = f"{what}: range {i}"
         if not isinstance(r, dict) or set(r) != _RANGE_KEYS:
             raise PackageError(f"{rw}: must have exactly the fields {', '.join(sorted(_RANGE_KEYS))}")
-        for k in ("frame_start", "frame_end"):
-            if isinstance(r[k], bool) or not isinstance(r[k], int) or r[k] < 0:
-                raise PackageError(f"{rw}: {k} must be a non-negative integer")
-        if r["frame_end"] < r["frame_start"]:
-            raise PackageError(f"{rw}: frame_end is before frame_start")
-        for k in ("t_start", "t_end"):
-            if isinstance(r[k], bool) or not isinstance(r[k], (int, float)):
-                raise PackageError(f"{rw}: {k} must be a number")
+        span, seconds = r["frames"], r["seconds"]
+        if not (isinstance(span, list) and len(span) == 2
+                and all(isinstance(v, int) and not isinstance(v, bool) and v >= 0 for v in span)):
+            raise PackageError(f"{rw}: frames must be [first, last], non-negative integers")
+        if span[1] < span[0]:
+            raise PackageError(f"{rw}: the last frame is before the first")
+        if not (isinstance(seconds, list) and len(seconds) == 2
+                and all(isinstance(v, (int, float)) and not isinstance(v, bool) for v in seconds)):
+            raise PackageError(f"{rw}: seconds must be [first, last], numbers")
         if not isinstance(r["reasons"], list) or not all(isinstance(x, str) and x for x in r["reasons"]):
             raise PackageError(f"{rw}: reasons must be a list of names")
-        ranges.append(ReviewRange(r["frame_start"], r["frame_end"], float(r["t_start"]), float(r["t_end"]),
-                                  tuple(r["reasons"])))
+        if r["explained"] != in_words(r["reasons"]):
+            raise PackageError(f"{rw}: explained must be the reasons in words")
+        ranges.append(ReviewRange(span[0], span[1], float(seconds[0]), float(seconds[1]), tuple(r["reasons"])))
     doc = ReviewFile(tuple(ranges), d["rules"], frames, d["note"])
     if encode_review(doc) != bytes(data):
         raise PackageError(f"{what}: not in the exact format this tool writes")

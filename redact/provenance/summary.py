@@ -30,7 +30,7 @@ def open_contents(path: Path, trusted_keys: Sequence | None) -> PackageContents:
 def summarise(contents: PackageContents) -> dict:
     """The summary of an opened package (see the module docstring)."""
     pred = contents.predicate
-    frames = people = faults = 0
+    frames = people = observed = faults = 0
     ids: set[int] = set()
     flagged: list[dict] = []
     if contents.has(SKELETONS):
@@ -39,10 +39,11 @@ def summarise(contents: PackageContents) -> dict:
             frames += 1
             faults += row.status == skeletons_jsonl.STATUS_FAULT
             people += len(row.people)
+            observed += sum(1 for p in row.people if p.observed)
             ids.update(p.id for p in row.people)
     if contents.has(REVIEW):
         doc = review_json.decode_review(contents.read_bytes(REVIEW, review_json.LIMIT))
-        flagged = [{"start": r.frame_start, "end": r.frame_end, "reason": ", ".join(r.reasons)} for r in doc.ranges]
+        flagged = [r.as_record() for r in doc.ranges]  # the one shape of a flagged range
     key_id = getattr(contents, "key_id", None) if contents.verified else getattr(contents, "key_id_hint", None)
     return {
         "verified": contents.verified,
@@ -55,7 +56,10 @@ def summarise(contents: PackageContents) -> dict:
         "tool": f"{pred.tool.name} {pred.tool.version}",
         "created": pred.created,
         "log_entries": None if pred.log is None else pred.log.entries,
-        "counts": {"frames": frames, "people": people, "tracks": len(ids), "fault_frames": faults},
+        # people: every person row; detections: matched to a detection in that frame ("observed");
+        # predicted: positions the tracker carried on between detections (coasting).
+        "counts": {"frames": frames, "people": people, "detections": observed, "predicted": people - observed,
+                   "tracks": len(ids), "fault_frames": faults},
         "flagged": flagged,
         "files": sorted(set(contents.statement.files) | {ENVELOPE}),
         "caution": CAUTION,

@@ -23,6 +23,7 @@ import numpy as np
 from redact import __version__, jsonio
 from redact.errors import InputError, PackageError, VerificationFailed
 from redact.formats import quality_jsonl, review_json
+from redact.formats.review_json import in_words
 from redact.provenance.contents import PackageContents, UnverifiedPackage, VerifiedPackage
 from redact.provenance.log import DISCLOSURE_FIELDS, decode_entry, utc_now
 from redact.provenance.package import ENVELOPE, LOG, QUALITY, REVIEW, SKELETONS, open_package, read_statement_unverified
@@ -37,15 +38,6 @@ MAX_QUALITY_ROWS = 2_000_000
 #: Most log entries shown in the table (common practice).
 MAX_LOG_ROWS = 500
 
-REASON_WORDS = {
-    "dark": "dark picture",
-    "low_contrast": "low contrast",
-    "blurred": "blurred picture",
-    "low_confidence": "detector unsure of body points",
-    "coasting": "person followed without detection",
-    "count_drop": "fewer people detected than just before",
-    "fault": "frame failed and was fully obscured",
-}
 
 CAUTIONS = (
     ("Skeleton data is pseudonymised, not anonymous.",
@@ -199,15 +191,20 @@ def _read_review(contents: PackageContents, problems: list[str]) -> tuple[list[d
     except (PackageError, VerificationFailed) as e:
         problems.append(str(e))
         return [], {}
-    # A package that failed verification: shown as far as it reads, every value escaped.
+    # A package that failed verification: shown as far as it reads (either layout of review.json,
+    # version 2 or 1), every value escaped.
     items = raw.get("ranges") if isinstance(raw, dict) else None
     ranges = []
     for r in items if isinstance(items, list) else []:
         if not isinstance(r, dict):
             continue
         reasons = r.get("reasons") if isinstance(r.get("reasons"), list) else []
-        ranges.append({"start": r.get("frame_start"), "end": r.get("frame_end"), "t_start": r.get("t_start"),
-                       "t_end": r.get("t_end"), "reasons": [str(x) for x in reasons]})
+        frames = r["frames"] if isinstance(r.get("frames"), list) and len(r["frames"]) == 2 else \
+            [r.get("frame_start"), r.get("frame_end")]
+        seconds = r["seconds"] if isinstance(r.get("seconds"), list) and len(r["seconds"]) == 2 else \
+            [r.get("t_start"), r.get("t_end")]
+        ranges.append({"start": frames[0], "end": frames[1], "t_start": seconds[0], "t_end": seconds[1],
+                       "reasons": [str(x) for x in reasons]})
     return ranges, _obj(raw, "rules")
 
 
@@ -484,7 +481,7 @@ def _review_section(contents: _Contents, thumbs: dict, thumb_note: str) -> str:
         out.append("<table><thead><tr><th>#</th><th>frames</th><th>time</th><th>why flagged</th>"
                    "<th>middle frame of the redacted video</th></tr></thead><tbody>")
         for k, r in enumerate(contents.ranges):
-            why = ", ".join(REASON_WORDS.get(x, x) for x in r["reasons"]) or "—"
+            why = "; ".join(in_words(r["reasons"])) or "—"
             if k in thumbs:
                 uri, w, h, i = thumbs[k]
                 cell = (f'<img class="thumb" src="{uri}" width="{w}" height="{h}" '
