@@ -327,7 +327,9 @@ def test_export_from_derived_packages_matches_the_rows(derived, derived_tar, tmp
     with __import__("tarfile").open(derived_tar["package"]) as t:  # read the members with the stdlib
         tar_rows = [json.loads(line) for line in t.extractfile("skeletons.jsonl").read().splitlines()]
     out = tmp_path / "r.json"
-    s = export_package(derived_tar["package"], "coco", out, trusted_keys=[pub])
+    s = export_package(derived_tar["package"], "coco", tmp_path / "observed.json", trusted_keys=[pub])
+    assert s["results"] == sum(p["state"] == "observed" for r in tar_rows for p in r["people"])  # the default
+    s = export_package(derived_tar["package"], "coco", out, trusted_keys=[pub], include_predicted=True)
     assert s["results"] == sum(len(r["people"]) for r in tar_rows)
     gt = COCO(str(tmp_path / "r.gt.json"))
     assert gt.loadImgs(tar_rows[0]["frame"])[0]["width"] == 320  # the signed source size

@@ -240,9 +240,17 @@ def test_rate_reduction_keeps_the_stated_frames():
     # 25 fps → 5 fps keeps every fifth frame
     out, _ = run(lines, pv.PrivacyOptions(target_fps=5.0), fps=25.0)
     assert [decode_row(x).frame for x in out] == [0, 5, 10, 15]
-    # 30 fps → 12 fps: first frame of each 1/12 s slot (slots are 2.5 frames long; worked by hand)
-    out, _ = run(lines, pv.PrivacyOptions(target_fps=12.0), fps=30.0)
-    assert [decode_row(x).frame for x in out] == [0, 3, 5, 8, 10, 13, 15, 18]
+    # 30 fps → at most 12 fps on an even grid: 30 / 2 = 15 is too fast, 30 / 3 = 10 is not (worked by
+    # hand), so every third frame; slots of 1/12 s would have kept 0, 3, 5, 8, … (uneven steps)
+    out, s = run(lines, pv.PrivacyOptions(target_fps=12.0), fps=30.0)
+    assert [decode_row(x).frame for x in out] == [0, 3, 6, 9, 12, 15, 18]
+    assert s["rate_step"] == 3 and s["fps_out"] == 10.0
+    # the case: 25 fps → 10 fps keeps every third frame (8.33 fps), every time step 0.12 s
+    out, s = run(lines, pv.PrivacyOptions(target_fps=10.0), fps=25.0)
+    assert [decode_row(x).frame for x in out] == [0, 3, 6, 9, 12, 15, 18]
+    assert np.allclose(np.diff([decode_row(x).t for x in out]), 3 / 25) and s["fps_out"] == pytest.approx(25 / 3)
+    # exact ratios stay exact: 25 → 12.5 every second frame; 29.97 (NTSC, 30000/1001) → 10 every third
+    assert pv.rate_step(25.0, 12.5) == 2 and pv.rate_step(30000 / 1001, 10.0) == 3 and pv.rate_step(25.0, 25.0) == 1
 
 
 def test_precision():

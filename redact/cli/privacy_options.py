@@ -68,7 +68,9 @@ def privacy_options(fn):
     @click.option("--keep-every", type=click.IntRange(1), default=1, show_default=True, metavar="N",
                   help="Keep the first frame and every N-th frame after it.")
     @click.option("--target-fps", type=click.FloatRange(0, min_open=True), default=None, metavar="FPS",
-                  help="Reduce the frame rate to at most FPS (instead of --keep-every).")
+                  help="Reduce the frame rate to at most FPS on an even grid (instead of --keep-every): every "
+                       "k-th frame, k the smallest whole number with source fps / k <= FPS, so time steps "
+                       "stay equal (25 fps to --target-fps 10 keeps every 3rd frame: 8.33 fps).")
     @click.option("--decimals", type=click.IntRange(0, MAX_DECIMALS), default=None,
                   help="Decimals of the coordinates (default: 2 for pixels, 5 for frame, 4 for track).")
     @click.option("--noise-px", type=click.FloatRange(0), default=0.0, metavar="PX",

@@ -1,4 +1,5 @@
-"""Research export of a package's skeletons.jsonl: per-track NumPy arrays (.npz) or COCO keypoint results.
+"""Research export of a package's skeletons.jsonl: per-track NumPy arrays (.npz), COCO keypoint results,
+a MOTChallenge-style track file or per-track trajectory CSVs (the last two: redact.skeletons.export_csv).
 
 The package is a directory or a .tar read in place (redact.provenance.package.open_package); with trusted keys
 it is verified first (redact.provenance.verify) and the bytes exported are checked against the signed hash.
@@ -6,19 +7,37 @@ it is verified first (redact.provenance.verify) and the bytes exported are check
 The exported data are what the package holds: pseudonymised personal data, not anonymous
 (GDPR Art. 4(5), Recital 26); people can be re-identified from skeletons (GaitPT, arXiv 2308.10623).
 
-.npz (numpy.load, no pickles): `track_ids` [K] int64, `frames` [F] int64 and `times` [F] float64
-of every row, `fault` [F] bool (rows fully obscured because processing failed), `units` (0-d str:
-"pixels", "frame" or "track"), and per track id: `track_<id>_keypoints` [T,17,3] float32
-(x, y, confidence), `track_<id>_frames` [T] int64, `track_<id>_times` [T] float64 seconds,
-`track_<id>_boxes` [T,4] float32 x1,y1,x2,y2, `track_<id>_scores` [T] float32,
-`track_<id>_observed` [T] bool, and `track_<id>_centre` [T,2] float32 when the rows carry it.
-Memory grows with the number of person-frames (about 230 bytes each) since .npz needs whole arrays.
+Every export describes itself (`describe`): frame width and height, frame rate, the COCO-17
+keypoint names in their order, the coordinate units and system, the source's SHA-256 and the
+SHA-256 of the package's signed statement, and whether the package was verified. Without a
+trusted key these come from the package's statement read unverified; a package without a
+readable statement leaves them unknown.
+
+Each person row is either a detection ("observed": matched to a detection in that frame) or a
+position the tracker predicted between detections ("predicted"). The COCO, MOT and trajectory
+exports leave predictions out unless asked (include_predicted): a prediction is the tracker's
+guess, not a measurement, and mixing the two unmarked skews evaluations. The .npz keeps every row
+with its `observed` flag.
+
+.npz (numpy.load with allow_pickle=False: plain arrays only): `track_ids` [K] int64, `frames` [F]
+int64 and `times` [F] float64 of every row, `fault` [F] bool (rows fully obscured because
+processing failed), `units` (0-d str: "pixels", "frame" or "track"), and per track id:
+`track_<id>_keypoints` [T,17,3] float32 (x, y, confidence), `track_<id>_frames` [T] int64,
+`track_<id>_times` [T] float64 seconds, `track_<id>_boxes` [T,4] float32 x1,y1,x2,y2,
+`track_<id>_scores` [T] float32, `track_<id>_observed` [T] bool, and `track_<id>_centre` [T,2]
+float32 when the rows carry it. The description: `keypoint_names` [17] str (COCO-17 order),
+`frame_width`, `frame_height` (0-d int64, -1 when unknown), `fps` (0-d float64, -1 when unknown),
+`coordinate_units`, `coordinate_system`, `source_sha256`, `statement_sha256` (0-d str, empty when
+unknown), `verified` (0-d bool), and `metadata`, the whole description as one JSON object in a
+0-d str. Memory grows with the number of person-frames (about 230 bytes each) since .npz needs
+whole arrays.
 
 COCO (cocodataset.org keypoint results format, streamed): a list of {image_id (= frame index),
-category_id: 1, keypoints: 51 numbers x, y, score per COCO-17 keypoint, score, track_id}, and a
-ground-truth-style file with the images (one per row, no pixels) and the person category with the
-COCO-17 keypoint names and 1-based skeleton, so pycocotools' COCO.loadRes accepts the results.
-COCO keypoints are pixels: rows in frame or track units are refused for this format.
+category_id: 1, keypoints: 51 numbers x, y, score per COCO-17 keypoint, score, track_id, state},
+and a ground-truth-style file with the images (one per row, no pixels), the person category with
+the COCO-17 keypoint names and 1-based skeleton, and the description under "info", so
+pycocotools' COCO.loadRes accepts the results. COCO keypoints are pixels: rows in frame or track
+units are refused for this format.
 """
 
 from __future__ import annotations
@@ -39,8 +58,20 @@ from redact.provenance.predicate import Predicate
 from redact.skeletons.rows import tracks_of
 from redact.vision.skeleton import KEYPOINT_NAMES, LINKS_1BASED
 
-FORMATS = ("npz", "coco")
+FORMATS = ("npz", "coco", "mot", "trajectories")
 SKELETONS = "skeletons.jsonl"
+ENVELOPE = "envelope.json"
+#: What the coordinates of each unit mean (redact.skeletons.privacy, PrivacyOptions.coordinates).
+COORDINATE_SYSTEMS = {
+    "pixels": "source frame pixels; origin at the top-left corner, x to the right, y down",
+    "frame": "fractions of the frame width (x) and height (y); origin at the top-left corner, y down",
+    "track": "offsets from the person's box centre in that frame divided by the track's scale (median "
+             "apparent body height over the track); y down",
+}
+CAUTION = ("Pseudonymised personal data, not anonymous: people can be re-identified from their gait "
+           "and body proportions (GaitPT, arXiv 2308.10623).")
+
+
 
 
 @dataclass(frozen=True)
@@ -53,6 +84,7 @@ class PackageSource:
     verified: bool
     key_id: str | None = None
     predicate: Predicate | None = None
+    statement_sha256: str | None = None
 
 
 def _stream(contents: PackageContents) -> Iterator[bytes]:
@@ -81,13 +113,62 @@ def read_package(package: str | Path, trusted_keys: Sequence | None = None) -> P
     if not (package.is_dir() or package.is_file()):
         raise InputError(f"{package}: not a package directory or .tar file")
     if not trusted_keys:
-        return PackageSource(_stream_unsigned(package), False)
+        predicate, digest = _statement_unverified(package)
+        return PackageSource(_stream_unsigned(package), False, None, predicate, digest)
     from redact.provenance.verify import verify_package
 
     result = verify_package(package, list(trusted_keys))
     if not result.has(SKELETONS):
         raise VerificationFailed([f"{SKELETONS}: not named in the signed statement"])
-    return PackageSource(_stream(result), True, result.key_id, result.predicate)
+    return PackageSource(_stream(result), True, result.key_id, result.predicate, result.statement_sha256)
+
+
+def _statement_unverified(package: Path) -> tuple[Predicate | None, str | None]:
+    """The predicate and statement SHA-256 of a package read WITHOUT checking its signature, for the
+    export's description only; (None, None) when there is no readable statement."""
+    import hashlib
+
+    from redact import jsonio
+    from redact.provenance import signing
+    from redact.provenance.statement import parse_statement
+
+    try:
+        with open_package(package) as reader:
+            if ENVELOPE not in reader.files:
+                return None, None
+            env = jsonio.loads_object(reader.read(ENVELOPE, 16 * 1024 * 1024), ENVELOPE)
+            payload = signing.b64decode_any(env.get("payload"))
+            return parse_statement(payload).predicate, hashlib.sha256(payload).hexdigest()
+    except (PackageError, ValueError, TypeError, AttributeError):
+        return None, None
+
+
+def _fps(predicate: Predicate | None) -> float | None:
+    if predicate is None:
+        return None
+    num, _, den = predicate.source.fps.partition("/")
+    try:
+        return int(num) / int(den or 1)
+    except (ValueError, ZeroDivisionError):
+        return None
+
+
+def describe(src: PackageSource, units: str) -> dict:
+    """What an export holds, for the files themselves (see the module docstring); None = unknown."""
+    p = src.predicate
+    return {
+        "kind": "redact skeleton export", "version": 1,
+        "verified": src.verified, "key_id": src.key_id,
+        "frame_width": p.source.width if p is not None else None,
+        "frame_height": p.source.height if p is not None else None,
+        "fps": p.source.fps if p is not None else None, "fps_value": _fps(p),
+        "keypoint_names": list(KEYPOINT_NAMES),
+        "keypoint_order": "COCO-17 (cocodataset.org keypoint format); per keypoint x, y, confidence",
+        "coordinate_units": units, "coordinate_system": COORDINATE_SYSTEMS.get(units, units),
+        "source_sha256": p.source.sha256 if p is not None else None,
+        "statement_sha256": src.statement_sha256,
+        "caution": CAUTION,
+    }
 
 
 def read_package_lines(package: str | Path, trusted_keys: Sequence | None = None) -> Iterator[bytes]:
@@ -137,8 +218,29 @@ def _check_out(out: Path, force: bool) -> None:
         raise OutputError(f"{out.parent}: no such directory")
 
 
-def export_npz(lines: Iterable[bytes], out: str | Path, force: bool = False) -> dict:
-    """Write the per-track arrays to out (.npz, compressed) via a temporary name; return a summary."""
+def _describe_arrays(meta: dict) -> dict[str, np.ndarray]:
+    """The description as plain arrays (no object arrays, so numpy.load needs no pickles)."""
+    def known(v, default):
+        return default if v is None else v
+
+    return {
+        "keypoint_names": np.array(meta["keypoint_names"], dtype=str),
+        "frame_width": np.array(known(meta["frame_width"], -1), np.int64),
+        "frame_height": np.array(known(meta["frame_height"], -1), np.int64),
+        "fps": np.array(known(meta["fps_value"], -1.0), np.float64),
+        "coordinate_units": np.array(meta["coordinate_units"], dtype=str),
+        "coordinate_system": np.array(meta["coordinate_system"], dtype=str),
+        "source_sha256": np.array(known(meta["source_sha256"], ""), dtype=str),
+        "statement_sha256": np.array(known(meta["statement_sha256"], ""), dtype=str),
+        "verified": np.array(bool(meta["verified"])),
+        "metadata": np.array(json.dumps(meta, sort_keys=True, allow_nan=False), dtype=str),
+    }
+
+
+def export_npz(lines: Iterable[bytes], out: str | Path, force: bool = False,
+               source: PackageSource | None = None) -> dict:
+    """Write the per-track arrays to out (.npz, compressed) via a temporary name; return a summary.
+    `source` supplies the description (see `describe`); without it the description is unknown."""
     out = Path(out)
     _check_out(out, force)
     frames, times, fault = [], [], []
@@ -170,6 +272,8 @@ def export_npz(lines: Iterable[bytes], out: str | Path, force: bool = False) -> 
         "fault": np.array(fault, bool),
         "units": np.array(units),
     }
+    meta = describe(source or PackageSource(iter(()), False), units)
+    arrays.update(_describe_arrays(meta))
     person_frames = 0
     for tid in sorted(per):
         d = per[tid]
@@ -185,7 +289,7 @@ def export_npz(lines: Iterable[bytes], out: str | Path, force: bool = False) -> 
     with fsio.atomic_file(out, replace=force) as f:  # a file object, so numpy does not append ".npz"
         np.savez_compressed(f, **arrays)
     return {"format": "npz", "out": str(out), "rows": len(frames), "tracks": len(per),
-            "person_frames": person_frames, "units": units}
+            "person_frames": person_frames, "units": units, "metadata": meta}
 
 
 def _num(v) -> str:
@@ -201,16 +305,22 @@ def coco_categories() -> list[dict]:
 
 
 def export_coco(lines: Iterable[bytes], out: str | Path, gt_out: str | Path | None = None,
-                frame_size: tuple[int, int] | None = None, force: bool = False) -> dict:
+                frame_size: tuple[int, int] | None = None, force: bool = False,
+                include_predicted: bool = False, source: PackageSource | None = None) -> dict:
     """Write COCO keypoint results to out and the images/categories file to gt_out (default:
-    out with ".gt.json" in place of ".json"), both streamed via temporary names; return a summary."""
+    out with ".gt.json" in place of ".json"), both streamed via temporary names; return a summary.
+    Each result carries "state" ("observed" or "predicted"); predictions are left out unless
+    include_predicted."""
     out = Path(out)
     gt_out = Path(gt_out) if gt_out is not None else default_gt_path(out)
     if gt_out.resolve() == out.resolve():
         raise OutputError("the results and ground-truth files must differ")
     _check_out(out, force)
     _check_out(gt_out, force)
-    n_rows = n_people = 0
+    n_rows = n_people = left_out = 0
+    meta = describe(source or PackageSource(iter(()), False), "pixels")
+    info = {"description": "images of a skeleton package (no pixels); pseudonymised personal data", **meta,
+            "predictions": "included" if include_predicted else "left out"}
     # Both via temporary names; the results file is renamed into place last.
     with fsio.atomic_file(out, replace=force) as f_bin, fsio.atomic_file(gt_out, replace=force) as g_bin:
         def f(text: str) -> None:
@@ -220,8 +330,7 @@ def export_coco(lines: Iterable[bytes], out: str | Path, gt_out: str | Path | No
             g_bin.write(text.encode("utf-8"))
 
         f("[")
-        g('{"info":{"description":"images of a skeleton package (no pixels); '
-          'pseudonymised personal data"},"images":[')
+        g('{"info":' + json.dumps(info, sort_keys=True, allow_nan=False) + ',"images":[')
         for r in _rows(lines):
             if r.units != "pixels":
                 raise InputError(f"format: COCO keypoints are pixels but this package has units={r.units!r}; "
@@ -232,15 +341,19 @@ def export_coco(lines: Iterable[bytes], out: str | Path, gt_out: str | Path | No
             g(("," if n_rows else "") + json.dumps(image, allow_nan=False))
             n_rows += 1
             for i in range(len(r.ids)):
+                if not r.observed[i] and not include_predicted:
+                    left_out += 1
+                    continue
                 kp = ",".join(_num(v) for v in r.keypoints[i].reshape(-1))
+                state = "observed" if r.observed[i] else "predicted"
                 f(("," if n_people else "") +
                   f'\n{{"image_id":{r.frame},"category_id":1,"keypoints":[{kp}],'
-                  f'"score":{_num(r.scores[i])},"track_id":{int(r.ids[i])}}}')
+                  f'"score":{_num(r.scores[i])},"track_id":{int(r.ids[i])},"state":"{state}"}}')
                 n_people += 1
         f("\n]\n")
         g('],"annotations":[],"categories":' + json.dumps(coco_categories()) + "}\n")
     return {"format": "coco", "out": str(out), "gt_out": str(gt_out), "rows": n_rows, "results": n_people,
-            "units": "pixels"}
+            "predicted_left_out": left_out, "units": "pixels", "metadata": meta}
 
 
 def default_gt_path(out: str | Path) -> Path:
@@ -252,11 +365,13 @@ def default_gt_path(out: str | Path) -> Path:
 
 def export_package(package: str | Path, fmt: str, out: str | Path, gt_out: str | Path | None = None,
                    frame_size: tuple[int, int] | None = None, force: bool = False,
-                   trusted_keys: Sequence | None = None) -> dict:
-    """Export PACKAGE's (directory or .tar) skeletons as fmt ("npz" or "coco") to out; return a summary.
+                   trusted_keys: Sequence | None = None, include_predicted: bool = False) -> dict:
+    """Export PACKAGE's (directory or .tar) skeletons as fmt (one of FORMATS) to out (a file; a new
+    folder for "trajectories"); return a summary.
 
     With trusted_keys the package is verified first (VerificationFailed on any problem) and, for
-    coco, frame_size defaults to the signed source width and height.
+    coco, frame_size defaults to the signed source width and height. include_predicted: also
+    export the positions the tracker predicted between detections (coco, mot, trajectories).
     """
     if fmt not in FORMATS:
         raise InputError(f"format: {fmt!r} is not one of {', '.join(FORMATS)}")
@@ -265,17 +380,24 @@ def export_package(package: str | Path, fmt: str, out: str | Path, gt_out: str |
     for target in (out, None if gt_out is None else Path(gt_out)):
         if target is not None and (target.resolve() == pkg or pkg in target.resolve().parents):
             raise OutputError(f"{target}: would write inside the package (or over it); choose a place outside it")
-    if fmt == "npz" and gt_out is not None:
+    if fmt != "coco" and gt_out is not None:
         raise InputError("gt_out: only applies to the coco format")
+    if include_predicted and fmt == "npz":
+        raise InputError("include_predicted: the npz export keeps every row with its observed flag")
     src = read_package(package, trusted_keys)
     if fmt == "npz":
-        summary = export_npz(src.lines, out, force)
-    else:
-        if frame_size is None and src.predicate is not None:
+        summary = export_npz(src.lines, out, force, src)
+    elif fmt == "coco":
+        if frame_size is None and src.verified and src.predicate is not None:
             w, h = src.predicate.source.width, src.predicate.source.height
             if w > 0 and h > 0:
                 frame_size = (w, h)
-        summary = export_coco(src.lines, out, gt_out, frame_size, force)
+        summary = export_coco(src.lines, out, gt_out, frame_size, force, include_predicted, src)
+    else:
+        from redact.skeletons import export_csv
+
+        write = export_csv.export_mot if fmt == "mot" else export_csv.export_trajectories
+        summary = write(_rows(src.lines), out, force, include_predicted, src)
     summary["verified"] = src.verified
     summary["key_id"] = src.key_id
     return summary

@@ -115,7 +115,10 @@ class PrivacyOptions:
       scale (median apparent body height over the track), so neither position nor size stays;
       keep_position (track mode only) keeps the box centre as "centre" in frame fractions.
     keep_every: keep the first row and every k-th row after it (by frame index); target_fps:
-      keep the first row of each 1/target_fps slot (by frame index and the source fps).
+      the same on an even grid chosen from the rate: k is the smallest whole number with
+      source fps / k <= target_fps (`rate_step`), so every time step is the same (25 -> 10 fps
+      keeps every 3rd frame, 8.33 fps; slots of 1/target_fps would keep frames 0, 3, 5, 8, …,
+      steps of 0.12 and 0.08 s, which trajectory models read as a change of speed).
     decimals: coordinate decimals (None: 2 for pixels, 5 for frame, 4 for track).
     noise_px: standard deviation in source pixels of Gaussian noise on x and y.
     new_ids: replace track ids with random ids in 1..2^31-1 (an injective mapping).
@@ -347,6 +350,14 @@ def decode_row_extras(line: bytes | str) -> RowExtras:
     return RowExtras(row.units, centres)
 
 
+def rate_step(fps: float, target_fps: float) -> int:
+    """The whole-frame step that brings `fps` to at most `target_fps` on an even grid: the smallest
+    k >= 1 with fps / k <= target_fps, in exact rational arithmetic (rates as written, e.g. 29.97)."""
+    src = Fraction(fps).limit_denominator(100000)
+    want = Fraction(target_fps).limit_denominator(100000)
+    return max(1, math.ceil(src / want))
+
+
 # ---- the stream ------------------------------------------------------------------------------
 
 class PrivacyRun:
@@ -372,8 +383,7 @@ class PrivacyRun:
         self._o = o
         self._size = None if frame_size is None else (float(frame_size[0]), float(frame_size[1]))
         self._fps = fps
-        self._rate = None if o.target_fps is None else \
-            Fraction(o.target_fps).limit_denominator(100000) / Fraction(fps).limit_denominator(100000)
+        self._step = o.keep_every if o.target_fps is None else rate_step(fps, o.target_fps)
         self._scan = scan
         self._started = False
         self.finished = False
@@ -391,6 +401,8 @@ class PrivacyRun:
             "people_out": 0, "keypoints_dropped": 0, "bones_rescaled": 0, "bones_degenerate": 0,
             "noise_values": 0, "tracks_renamed": 0, "units": o.units,
         }
+        if o.target_fps is not None:
+            self.summary.update(rate_step=self._step, fps_out=round(float(fps) / self._step, 6))
 
     def __iter__(self) -> Iterator[bytes]:
         if self._started:
@@ -399,16 +411,7 @@ class PrivacyRun:
         return self._generate()
 
     def _keep(self, frame: int, first: int, state: dict) -> bool:
-        o = self._o
-        offset = frame - first
-        if o.target_fps is not None:
-            # Slot of this frame at the target rate, in exact rational arithmetic.
-            slot = math.floor(offset * self._rate)
-            if state.get("slot") is not None and slot <= state["slot"]:
-                return False
-            state["slot"] = slot
-            return True
-        return offset % o.keep_every == 0
+        return (frame - first) % self._step == 0
 
     def _generate(self) -> Iterator[bytes]:
         o, s = self._o, self.summary
