@@ -116,7 +116,7 @@ def _json_bytes(doc) -> bytes:
     return (json.dumps(doc, indent=2, sort_keys=True, ensure_ascii=False, allow_nan=False) + "\n").encode("utf-8")
 
 
-def _track_pass(source: Path, settings: ProcessSettings, estimator, fps: float):
+def _track_pass(source: Path, settings: ProcessSettings, estimator, fps: float, progress=None, expected: int = 0):
     """First pass: every frame through redact.vision.tracking.TrackingPass, the loop the pipeline runs.
 
     Returns (tracker summaries, {id: _Seen}, frames decoded, source sha256, stopped_early).
@@ -129,6 +129,8 @@ def _track_pass(source: Path, settings: ProcessSettings, estimator, fps: float):
         n = 0
         for item in tracking.run(reader.frames()):
             n += 1
+            if progress is not None:
+                progress(n, expected)
             if item.tracks is None:  # a failed frame: nobody to picture
                 continue
             tracks = item.tracks
@@ -159,12 +161,13 @@ STAGING_PREFIX = ".redact-tracks-partial-"
 
 
 def make_track_sheet(source: str | Path, out_dir: str | Path, settings: ProcessSettings = ProcessSettings(),
-                     estimator=None) -> list[dict]:
+                     estimator=None, progress=None) -> list[dict]:
     """Write a track sheet for `source` into the new folder out_dir; returns its track list.
 
     Each item: id, first_frame, last_frame, first_t, last_t, frames_observed, frames_predicted,
     image (file name in out_dir), shown (the frames on the picture, each {"frame", "box"}). estimator: a PoseEstimator
-    to use instead of the bundled default (tests). Refuses an existing out_dir; writes into a
+    to use instead of the bundled default (tests). progress(frames_done, frames_expected) is called
+    after each frame of the tracking pass. Refuses an existing out_dir; writes into a
     hidden temporary folder beside it and renames it into place at the end.
     """
     from redact.media.video import probe
@@ -192,7 +195,7 @@ def make_track_sheet(source: str | Path, out_dir: str | Path, settings: ProcessS
         except OSError as e:
             raise fsio.write_error(parent, e) from None
         try:
-            items = _write_sheet(source, info, staging, settings, estimator, entry.sha256)
+            items = _write_sheet(source, info, staging, settings, estimator, entry.sha256, progress)
             fsio.rename_new(staging, out_dir)  # never over a folder that appeared meanwhile
         except OSError as e:
             raise fsio.write_error(out_dir, e) from None
@@ -201,10 +204,11 @@ def make_track_sheet(source: str | Path, out_dir: str | Path, settings: ProcessS
     return items
 
 
-def _write_sheet(source: Path, info, staging: Path, settings: ProcessSettings, estimator, model_sha: str) -> list[dict]:
+def _write_sheet(source: Path, info, staging: Path, settings: ProcessSettings, estimator, model_sha: str,
+                 progress=None) -> list[dict]:
     (staging / README_NAME).write_text(README_TEXT, encoding="utf-8")  # first: the folder is marked at once
     fps = float(info.fps)
-    summaries, seen, n_frames, sha, stopped = _track_pass(source, settings, estimator, fps)
+    summaries, seen, n_frames, sha, stopped = _track_pass(source, settings, estimator, fps, progress, info.frames)
     wanted: dict[int, list[tuple[int, np.ndarray]]] = {}
     shown: dict[int, list[dict]] = {}
     for tid, s in seen.items():

@@ -14,6 +14,7 @@ import os
 import subprocess
 import sys
 
+import click
 import pytest
 from click.testing import CliRunner
 from test_package import SEED, build_package
@@ -257,3 +258,45 @@ def test_process_without_report_still_says_what_to_open_first(crossing_clip, tmp
     assert c["predicted"] > 0 and c["people"] == len(states)
     text = run("inspect", tmp_path / "p" / "package").stdout
     assert f"{c['detections']} person detections, {c['predicted']} positions predicted" in text
+
+
+# ---------------------------------------------------------------- tracks
+
+def test_tracks_offers_only_the_options_that_decide_ids_and_its_help_names_them_all():
+    from redact.cli.options import track_options
+    from redact.redaction.plan import ids_fingerprint
+
+    text = " ".join(run("tracks", "--help").stdout.split())
+    for gone in ("--style", "--figures", "--margin", "--crf", "--include-audio", "--archive"):
+        assert gone not in text, gone
+    changed = {"--pose-model": "yolo11n-pose", "--input-size": "320", "--score-threshold": "0.4",
+               "--coast-seconds": "0.5", "--detect-every": "2"}
+    epilog = text[text.index("fingerprint"):]
+    for opt in changed:
+        assert opt in epilog, opt  # the help names every setting the fingerprint covers
+
+    seen = {}
+
+    @click.command()
+    @track_options
+    def probe(settings):
+        seen["settings"] = settings
+
+    def fingerprint(*args):
+        assert CliRunner().invoke(probe, list(args)).exit_code == 0
+        return ids_fingerprint(seen["settings"], "0" * 64)
+
+    base = fingerprint()
+    for opt, value in changed.items():
+        assert fingerprint(opt, value) != base, opt  # each option the sheet takes changes the ids' fingerprint
+    assert fingerprint("--threads", "1") == base  # speed only
+
+
+def test_tracks_shows_progress_unless_quiet(crossing_clip, tmp_path):
+    r = run("tracks", crossing_clip.path, "--out", tmp_path / "a", "--input-size", "320")
+    assert r.exit_code == 0, r.output
+    n = len(crossing_clip.truths)
+    assert f"tracks: frame {n}/{n} (100.0 %)" in r.stderr
+    q = run("tracks", crossing_clip.path, "--out", tmp_path / "b", "--input-size", "320", "--quiet")
+    assert q.exit_code == 0 and "frame" not in q.stderr and "SENSITIVE" in q.stderr
+    assert q.stdout == r.stdout.replace(str(tmp_path / "a"), str(tmp_path / "b"))

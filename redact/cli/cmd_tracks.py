@@ -8,7 +8,8 @@ import click
 
 from redact.cli import main
 from redact.cli.common import echo_json, library_errors
-from redact.cli.options import pipeline_options
+from redact.cli.options import track_options
+from redact.cli.progress import FrameProgress
 from redact.errors import InputError
 
 SHEET_CAUTION = (
@@ -24,9 +25,14 @@ Example:
   cp lobby-sheet/plan-template.json plan.json   # add the id(s) to keep_visible
   redact process lobby.mp4 --out lobby-redacted --signing-key keys/steward.private.pem --plan plan.json
 
-Use exactly the same detection and tracking options (--score-threshold, --input-size,
---coast-seconds) as the later `redact process` run: track ids are only valid for the same video
-and settings, and `redact process --plan` refuses a plan made with others.
+
+Track ids are only valid for the same video and settings. The sheet's fingerprint
+(settings_sha256 in plan-template.json) covers every setting that decides them: the pose model
+(--pose-model) and its SHA-256, --input-size, --score-threshold, --coast-seconds,
+--detect-every, and the detector's and tracker's built-in settings; the plan also names the
+source file by its SHA-256. Give the later `redact process` run exactly the same options:
+`redact process --plan` refuses a plan whose fingerprint or source differs. --threads only
+changes the speed.
 
 {SHEET_CAUTION}
 Tracking makes mistakes (one person can get two ids; ids can swap when people cross): check
@@ -34,17 +40,22 @@ every picture, and review the redacted copy before disclosure.""")
 @click.argument("source", type=click.Path(path_type=Path))
 @click.option("--out", "out", required=True, type=click.Path(path_type=Path),
               help="The sheet, a new folder to create (must not exist).")
-@pipeline_options
+@track_options
 @click.option("--json", "as_json", is_flag=True, help="Print the track list as one JSON document on stdout.")
+@click.option("--quiet", is_flag=True, help="No progress line.")
 @library_errors
-def tracks(source: Path, out: Path, settings, as_json: bool) -> None:
+def tracks(source: Path, out: Path, settings, as_json: bool, quiet: bool) -> None:
     """Write one picture per tracked person in SOURCE (first, middle and last appearance) with
     its track id, time range and frame count, plus tracks.json and a plan template."""
     from redact.tracksheet import make_track_sheet
 
     if not source.exists():
         raise InputError(f"{source}: no such file")
-    items = make_track_sheet(source, out, settings)
+    progress = FrameProgress(quiet or as_json, label="tracks")
+    try:
+        items = make_track_sheet(source, out, settings, progress=progress)
+    finally:
+        progress.close()
     if as_json:
         echo_json({"sheet": str(out), "sensitive": True, "tracks": items})
     else:

@@ -1,4 +1,4 @@
-"""Shared click options of the commands that run the pipeline (process, demo), as decorators."""
+"""Shared click options of the commands that run the pipeline (process, demo, batch) and of `tracks`, as decorators."""
 
 from __future__ import annotations
 
@@ -35,55 +35,93 @@ class BundledModelChoice(click.Choice):
 
 
 
+def _detection_options() -> list:
+    """The options that decide who is found and which track id each person gets (with --threads,
+    which only decides speed): shared by process, demo, batch and tracks."""
+    return [
+        click.option("--pose-model", type=BundledModelChoice("pose"), default=DEFAULT_POSE_MODEL, show_default=True,
+                     help="Bundled pose model (`redact models` and models_manifest/ say what each is). "
+                          "yolo11n-pose-int8 is yolo11n-pose quantised to int8: about 1.5-2x faster on the CPU, "
+                          "keypoints a few pixels from the float32 model's; choose yolo11n-pose for the most "
+                          "exact skeletons."),
+        click.option("--input-size", type=click.IntRange(160, 1920), default=640, show_default=True,
+                     help="Long side of the model input in pixels (a multiple of 32). Larger finds smaller "
+                          "people, slower."),
+        click.option("--score-threshold", type=click.FloatRange(0.01, 0.99), default=0.25, show_default=True,
+                     help="Minimum person score of the detector. Lower finds more people and more false alarms."),
+        click.option("--coast-seconds", type=click.FloatRange(0, 60), default=1.5, show_default=True,
+                     help="How long a person whose detection is lost is still followed (and obscured) along "
+                          "the predicted path."),
+        click.option("--detect-every", type=click.IntRange(1, 10), default=1, show_default=True,
+                     help="Run the detector on every k-th frame and track in between (faster; margins grow "
+                          "on frames without detection)."),
+        click.option("--threads", type=click.IntRange(1, 256), default=None,
+                     help="CPU threads for the model, one frame at a time (default: as many frames at once as "
+                          "cores, up to 4, one thread each; with --detect-every 2 or more, one frame on all "
+                          "cores but one). The count is recorded: skeletons are byte-identical only with "
+                          "the same count."),
+    ]
+
+
+def _with(fn, decorators: list):
+    for d in reversed(decorators):
+        fn = d(fn)
+    return fn
+
+
+def _detection(pose_model, input_size, score_threshold, coast_seconds, detect_every, threads) -> dict:
+    """ProcessSettings fields from the detection options (click.BadParameter on a bad input size)."""
+    if input_size % 32:
+        raise click.BadParameter(f"must be a multiple of 32, got {input_size}", param_hint="--input-size")
+    return {"pose": PoseSettings(model=pose_model, input_long_side=input_size, score_threshold=score_threshold),
+            "tracker": TrackerConfig(), "coast_seconds": coast_seconds, "detect_every": detect_every,
+            "threads": threads}
+
+
+def track_options(fn):
+    """Only the options that decide track ids (and --threads), for `redact tracks`, turned into one
+    ProcessSettings passed as `settings` (everything else at its default: it does not matter there)."""
+
+    @functools.wraps(fn)
+    def wrapper(*args, pose_model, input_size, score_threshold, coast_seconds, detect_every, threads, **kwargs):
+        kwargs["settings"] = ProcessSettings(**_detection(pose_model, input_size, score_threshold, coast_seconds,
+                                                          detect_every, threads))
+        return fn(*args, **kwargs)
+
+    return _with(wrapper, _detection_options())
+
+
 def pipeline_options(fn):
     """Options that shape the redaction, turned into one ProcessSettings passed as `settings`."""
 
-    @click.option("--style", type=click.Choice(STYLES), default="figure", show_default=True,
-                  help="How people are obscured: figure = grey region with a stick figure drawn on it; "
-                       "blur; pixelate; fill = plain grey; background = the empty scene behind people (a "
-                       "median over the clip with people masked out, grey where never seen empty), with "
-                       "figures.")
-    @click.option("--figures/--no-figures", default=False,
-                  help="Also draw stick figures over blur, pixelate or fill.")
-    @click.option("--margin", type=click.FloatRange(0, 2), default=0.15, show_default=True,
-                  help="Extra margin around each person, as a fraction of the box size.")
-    @click.option("--coast-seconds", type=click.FloatRange(0, 60), default=1.5, show_default=True,
-                  help="How long a person whose detection is lost stays obscured along the predicted path.")
-    @click.option("--score-threshold", type=click.FloatRange(0.01, 0.99), default=0.25, show_default=True,
-                  help="Minimum person score of the detector. Lower finds more people and more false alarms.")
-    @click.option("--pose-model", type=BundledModelChoice("pose"), default=DEFAULT_POSE_MODEL, show_default=True,
-                  help="Bundled pose model (`redact models` and models_manifest/ say what each is). "
-                       "yolo11n-pose-int8 is yolo11n-pose quantised to int8: about 1.5-2x faster on the CPU, "
-                       "keypoints a few pixels from the float32 model's; choose yolo11n-pose for the most "
-                       "exact skeletons.")
-    @click.option("--input-size", type=click.IntRange(160, 1920), default=640, show_default=True,
-                  help="Long side of the model input in pixels (a multiple of 32). Larger finds smaller people, slower.")
-    @click.option("--detect-every", type=click.IntRange(1, 10), default=1, show_default=True,
-                  help="Run the detector on every k-th frame and track in between (faster; margins grow "
-                       "on frames without detection).")
-    @click.option("--threads", type=click.IntRange(1, 256), default=None, help="CPU threads for the model, one frame at a time (default: as many frames at once as "
-                       "cores, up to 4, one thread each; with --detect-every 2 or more, one frame on all "
-                       "cores but one). The count is recorded: skeletons are byte-identical only with "
-                       "the same count.")
-    @click.option("--crf", type=click.IntRange(0, 51), default=20, show_default=True, help="H.264 quality of the redacted video (lower is better).")
-    @click.option("--include-audio", is_flag=True,
-                  help="Carry the source's audio into the redacted video (dropped by default: voices identify people).")
-    @click.option("--archive", is_flag=True, help="Write the package as one .tar instead of a folder.")
     @functools.wraps(fn)
-    def wrapper(*args, style, figures, margin, coast_seconds, score_threshold, pose_model, input_size, detect_every, threads, crf,
-                include_audio, archive, **kwargs):
-        if input_size % 32:
-            raise click.BadParameter(f"must be a multiple of 32, got {input_size}", param_hint="--input-size")
+    def wrapper(*args, style, figures, margin, pose_model, input_size, score_threshold, coast_seconds, detect_every,
+                threads, crf, include_audio, archive, **kwargs):
         kwargs["settings"] = ProcessSettings(
-            pose=PoseSettings(model=pose_model, input_long_side=input_size, score_threshold=score_threshold),
-            tracker=TrackerConfig(),
+            **_detection(pose_model, input_size, score_threshold, coast_seconds, detect_every, threads),
             render=RenderSettings(style=style, figure=figures, regions=RegionSettings(base_margin=margin)),
-            review=ReviewRules(),
-            coast_seconds=coast_seconds, detect_every=detect_every, include_audio=include_audio, archive=archive, threads=threads, crf=crf,
+            review=ReviewRules(), include_audio=include_audio, archive=archive, crf=crf,
         )
         return fn(*args, **kwargs)
 
-    return wrapper
+    return _with(wrapper, [
+        click.option("--style", type=click.Choice(STYLES), default="figure", show_default=True,
+                     help="How people are obscured: figure = grey region with a stick figure drawn on it; "
+                          "blur; pixelate; fill = plain grey; background = the empty scene behind people (a "
+                          "median over the clip with people masked out, grey where never seen empty), with "
+                          "figures."),
+        click.option("--figures/--no-figures", default=False,
+                     help="Also draw stick figures over blur, pixelate or fill."),
+        click.option("--margin", type=click.FloatRange(0, 2), default=0.15, show_default=True,
+                     help="Extra margin around each person, as a fraction of the box size."),
+        *_detection_options(),
+        click.option("--crf", type=click.IntRange(0, 51), default=20, show_default=True,
+                     help="H.264 quality of the redacted video (lower is better)."),
+        click.option("--include-audio", is_flag=True,
+                     help="Carry the source's audio into the redacted video (dropped by default: voices "
+                          "identify people)."),
+        click.option("--archive", is_flag=True, help="Write the package as one .tar instead of a folder."),
+    ])
 
 
 def disclosure_options(fn):
