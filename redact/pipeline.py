@@ -506,7 +506,8 @@ def _stream(run: _Run, out: _Outputs) -> _Streamed:
 
     store = RecordStore(pkg_dir / REGIONS, info.width, info.height, s.render)  # for re-rendering (docs/review.md)
     with store, VideoReader(run.source, threads=0) as reader, \
-            VideoWriter(out.video_tmp, info.width, info.height, info.time_base, info.fps, crf=s.crf) as writer, \
+            VideoWriter(out.video_tmp, info.width, info.height, info.time_base, info.fps, crf=s.crf,
+                        colour=info.colour) as writer, \
             WriteBehind(writer.write, depth=depth_for(frame_bytes, 4)) as encoder, \
             open(pkg_dir / package.SKELETONS, "wb") as skel, \
             open(pkg_dir / package.QUALITY, "wb") as qual, \
@@ -593,7 +594,8 @@ def _run(run: _Run, out: _Outputs) -> ProcessResult:
     log.append("encode", codec="h264", encoder="libx264", crf=params["crf"], frames=seen.frames_written,
                audio=("included" if (s.include_audio and info.has_audio)
                       else ("dropped" if info.has_audio else "none")),
-               container_metadata="not copied", source_metadata_keys=list(info.metadata_keys))
+               container_metadata="not copied", source_metadata_keys=list(info.metadata_keys),
+               colour=info.colour.as_dict())
     audit_result = None
     if run.audit:
         from redact.redaction.audit import AuditSettings, audit_summary, audit_video

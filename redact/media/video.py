@@ -30,11 +30,11 @@ from dataclasses import dataclass
 from fractions import Fraction
 from pathlib import Path
 
-import cv2
 import numpy as np
 
 from redact.errors import InputError, VideoError
 from redact.hashing import CHUNK, sha256_stream
+from redact.media.colour import BT601, RANGE_LIMITED, Colour, colour_of, decode_colorspace, rgb_to_i420
 
 DIGEST_TAG = b"redact.frame.v1\n"
 
@@ -70,6 +70,7 @@ class VideoInfo:
     codec: str
     metadata_keys: tuple[str, ...]
     frames_counted: bool = False  # True when `frames` came from counting packets
+    colour: Colour = BT601  # the stream's colour as tagged (redact.media.colour.colour_of)
 
     def as_dict(self) -> dict:
         """A JSON-ready dict (fractions as "num/den" strings)."""
@@ -219,6 +220,9 @@ def probe(path: str | Path) -> VideoInfo:
         codec = stream.codec_context.name
         has_audio = len(container.streams.audio) > 0
         width, height = stream.width, stream.height
+        cc = stream.codec_context
+        colour = colour_of(width, height, getattr(cc, "colorspace", None), getattr(cc, "color_primaries", None),
+                           getattr(cc, "color_trc", None))
         rot = _first_frame_rotation(container, stream)
         if rot is None:
             raise InputError(f"{p}: no frame of the video stream could be decoded")
@@ -233,7 +237,7 @@ def probe(path: str | Path) -> VideoInfo:
         width, height = height, width
     return VideoInfo(path=str(p), bytes=p.stat().st_size, width=int(width), height=int(height), fps=fps,
                      time_base=tb, frames=frames, duration=duration, rotation=rot, has_audio=has_audio,
-                     codec=codec, metadata_keys=tuple(sorted(keys)), frames_counted=counted)
+                     codec=codec, metadata_keys=tuple(sorted(keys)), frames_counted=counted, colour=colour)
 
 
 def _plane_row_bytes(fmt, plane, index: int, n_planes: int) -> int:
@@ -263,7 +267,10 @@ def native_digest(vf) -> bytes:
 
 
 def _upright_rgb(vf, rotation: int) -> np.ndarray:
-    img = vf.to_ndarray(format="rgb24")
+    """RGB of a decoded frame, upright; an untagged frame is read as BT.709 when HD, BT.601 otherwise
+    (redact.media.colour), as the redacted copy will be tagged."""
+    space = decode_colorspace(getattr(vf, "colorspace", None), vf.width, vf.height)
+    img = vf.to_ndarray(format="rgb24") if space is None else vf.to_ndarray(format="rgb24", src_colorspace=space)
     if rotation:
         img = np.ascontiguousarray(np.rot90(img, k=-(rotation // 90)))  # negative k: clockwise
     img.flags.writeable = False
@@ -536,7 +543,11 @@ def frame_digests(path: str | Path, *, threads: int = 0) -> Iterator[bytes]:
 
 
 class VideoWriter:
-    """Encode RGB frames to an H.264 (libx264, yuv420p, BT.601 limited range) MP4 that browsers play.
+    """Encode RGB frames to an H.264 (libx264, yuv420p, limited range) MP4 that browsers play.
+
+    colour: the Y'CbCr matrix and the tags written (redact.media.colour): pass the source's
+    (VideoInfo.colour) so the copy looks as the source does; None = BT.709 for HD frames, BT.601
+    (SMPTE 170M) otherwise. The RGB → Y'CbCr conversion uses the matrix the tags name.
 
     Each write() keeps the caller's integer pts in `time_base`, so the output has the source's
     frame count and timestamps. Odd width/height are padded to even (H.264 4:2:0 needs even
@@ -554,9 +565,11 @@ class VideoWriter:
     """
 
     def __init__(self, path: str | Path, width: int, height: int, time_base: Fraction, fps: Fraction,
-                 crf: int = 23, preset: str = "veryfast", threads: int = 0, reproducible: bool = False):
+                 crf: int = 23, preset: str = "veryfast", threads: int = 0, reproducible: bool = False,
+                 colour: Colour | None = None):
         if width < 1 or height < 1:
             raise VideoError(f"cannot encode a {width}x{height} video")
+        self.colour = colour if colour is not None else colour_of(int(width), int(height), None)
         self.path = Path(path)
         self.width, self.height = int(width), int(height)
         self.coded_width = self.width + (self.width & 1)
@@ -585,7 +598,9 @@ class VideoWriter:
         s.time_base = self.time_base
         s.codec_context.time_base = self.time_base
         cc = s.codec_context
-        cc.colorspace, cc.color_primaries, cc.color_trc, cc.color_range = 6, 6, 6, 1  # SMPTE 170M, MPEG range
+        c = self.colour
+        cc.colorspace, cc.color_primaries, cc.color_trc = c.matrix_code, c.primaries, c.transfer
+        cc.color_range = RANGE_LIMITED
         cc.thread_count = self.threads
         s.options = {"crf": str(self.crf), "preset": self.preset}
         if self.reproducible:
@@ -620,9 +635,8 @@ class VideoWriter:
         if (self.coded_width, self.coded_height) != (self.width, self.height):
             img = np.pad(img, ((0, self.coded_height - self.height), (0, self.coded_width - self.width), (0, 0)),
                          constant_values=128)
-        # BT.601 limited-range 4:2:0 (what the stream's colour tags say), chroma averaged over 2×2
-        # pixels; OpenCV's SIMD conversion takes about a fifth of swscale's time at 720p.
-        yuv = cv2.cvtColor(np.ascontiguousarray(img), cv2.COLOR_RGB2YUV_I420)
+        # limited-range 4:2:0 with the matrix the stream's colour tags name, chroma averaged over 2×2
+        yuv = rgb_to_i420(img, self.colour)
         vf = av.VideoFrame.from_ndarray(yuv, format="yuv420p")
         vf.pts, vf.time_base = pts, self.time_base
         try:

@@ -92,7 +92,7 @@ def rerender(source: Path, stored: StoredRegions, frame_digests: Sequence[str], 
     try:
         with VideoReader(source, threads=0) as reader, \
                 VideoWriter(tmp, info.width, info.height, info.time_base, info.fps,
-                            crf=int(parameters.get("crf", 20))) as writer, \
+                            crf=int(parameters.get("crf", 20)), colour=info.colour) as writer, \
                 WriteBehind(writer.write, depth=4) as encoder:
             for frame in read_ahead(reader.frames(), depth=4):
                 if n >= total:
