@@ -189,6 +189,7 @@ def test_report_header_names_the_package_folder(pair, tmp_path):
     from redact.report.document import build_report
 
     page = build_report(pair["pkg"]["path"], [signing.load_public_key(pair["pkg_pub"])]).decode()
+    page = page.replace("<wbr>", "")  # names may wrap after a separator
     assert "from package package" not in page
     assert f"{pair['pkg']['path'].parent.name}/{pair['pkg']['path'].name}" in page
 

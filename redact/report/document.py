@@ -303,6 +303,8 @@ th { background: #f3f3f3; font-weight: 600; }
 table.kv th { width: 32%; }
 td.mono, span.mono { font-family: ui-monospace, "DejaVu Sans Mono", Menlo, Consolas, monospace;
                      font-size: .85rem; overflow-wrap: anywhere; word-break: break-all; }
+td.name, span.name { font-family: ui-monospace, "DejaVu Sans Mono", Menlo, Consolas, monospace;
+                     font-size: .85rem; overflow-wrap: normal; word-break: normal; }
 .plot { width: 100%; height: auto; display: block; }
 figure { margin: 0; }
 figcaption { color: #444; font-size: .9rem; margin-top: .3rem; }
@@ -315,10 +317,10 @@ ul.findings li { margin: .15rem 0; }
 tr { page-break-inside: avoid; break-inside: avoid; }
 footer { margin-top: 2rem; color: #555; font-size: .85rem; border-top: 1px solid #c8c8c8; padding-top: .5rem; }
 @media print {
-  @page { size: A4; margin: 15mm; }
+  @page { margin: 15mm; }
   body { max-width: none; padding: 0; font-size: 10.5pt; background: #fff !important; color: #000; }
-  section { break-before: page; page-break-before: always; margin: 0; }
-  section.first, section.cautions { break-before: auto; page-break-before: auto; }
+  section { margin: 0 0 5mm; }
+  h2 { break-after: avoid; page-break-after: avoid; }
   .status, .caution, th { background: none !important; }
   .status.bad { border-width: 4px; }
   img, svg, figure, .status, .caution, tr { break-inside: avoid; page-break-inside: avoid; }
@@ -535,9 +537,17 @@ def _log_section(log: list[dict]) -> str:
     return "".join(out)
 
 
+def name_html(value: Any) -> str:
+    """A file or folder name, escaped, that wraps only after a separator (/ . _ -), never inside a word."""
+    text = esc(value)
+    for sep in ("/", ".", "_", "-"):
+        text = text.replace(sep, sep + "<wbr>")
+    return text
+
+
 def _files_section(statement: dict) -> str:
     subjects = statement.get("subject") if isinstance(statement.get("subject"), list) else []
-    rows = "".join(f'<tr><td class="mono">{esc(s.get("name"))}</td><td>{esc(_obj(s, "annotations").get("role"))}</td>'
+    rows = "".join(f'<tr><td class="name">{name_html(s.get("name"))}</td><td>{esc(_obj(s, "annotations").get("role"))}</td>'
                    f'<td>{esc(_obj(s, "annotations").get("bytes"))}</td>'
                    f'<td class="mono">{esc(_obj(s, "digest").get("sha256"))}</td></tr>'
                    for s in subjects if isinstance(s, dict))
@@ -617,7 +627,8 @@ def make_report(package: Path, trusted_keys: list, video: Path | None = None,
     problems = "".join(f"<li>{esc(p)}</li>" for p in contents.problems)
     body = [
         f"<header><h1>{esc(title)}</h1><p class=\"sub\">Report generated {esc(utc_now())} by redact "
-        f"{esc(__version__)} from the package <span class=\"mono\">{esc(_package_label(package))}</span>.</p></header>",
+        f"{esc(__version__)} from the package <span class=\"name\">{name_html(_package_label(package))}</span>."
+        "</p></header>",
         _human_review_section(pred),
         _status_section(verified, key_id, checked, findings, video, source),
         _partial_source_section(pred, verified),
