@@ -547,7 +547,8 @@ def name_html(value: Any) -> str:
 
 def _files_section(statement: dict) -> str:
     subjects = statement.get("subject") if isinstance(statement.get("subject"), list) else []
-    rows = "".join(f'<tr><td class="name">{name_html(s.get("name"))}</td><td>{esc(_obj(s, "annotations").get("role"))}</td>'
+    rows = "".join(f'<tr><td class="name">{name_html(s.get("name"))}</td>'
+                   f'<td>{esc(_obj(s, "annotations").get("role"))}</td>'
                    f'<td>{esc(_obj(s, "annotations").get("bytes"))}</td>'
                    f'<td class="mono">{esc(_obj(s, "digest").get("sha256"))}</td></tr>'
                    for s in subjects if isinstance(s, dict))

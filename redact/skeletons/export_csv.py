@@ -6,7 +6,8 @@ MOT (`mot`): one line per person and frame, no header, the MOTChallenge layout (
 (our frame index + 1), boxes in source pixels with the top-left pixel at (1, 1) as MOTChallenge's
 MATLAB-born devkit counts them (our x1 + 1, y1 + 1; py-motmetrics subtracts the 1 when it reads
 the file), conf the detector's person score, and x, y, z set to -1 (no 3-D position).
-py-motmetrics reads it with `motmetrics.io.loadtxt(path, fmt="mot15-2D")`. Pixels only: rows in frame or track units are refused.
+py-motmetrics reads it with `motmetrics.io.loadtxt(path, fmt="mot15-2D")`. Pixels only: rows in frame
+or track units are refused.
 
 Trajectories (`trajectories`): a new folder holding one CSV per track, `trajectory_<id>.csv`, no
 header, one line per frame the person appears in: the frame index (0-based, as in the package)
