@@ -73,7 +73,7 @@ class LoadedOutput:
         doc = jsonio.loads(self.files[REVIEW], REVIEW)
         out = []
         for r in doc.get("ranges", []) if isinstance(doc, dict) else []:
-            out.append(RangeReview(int(r["frame_start"]), int(r["frame_end"]), tuple(str(x) for x in r["reasons"])))
+            out.append(RangeReview(int(r["frames"][0]), int(r["frames"][1]), tuple(str(x) for x in r["reasons"])))
         return tuple(out)
 
     def initial_state(self) -> ReviewState:
