@@ -142,9 +142,9 @@ class PersonFinder:
     estimate(image) keeps the single-pass interface (whole frame only). Safe to call from several
     threads at once when the estimator is (`concurrent`)."""
 
-    def __init__(self, estimator: PoseEstimator, settings: CropSettings = CropSettings()):
+    def __init__(self, estimator: PoseEstimator, settings: CropSettings | None = None):
         self.estimator = estimator
-        self.settings = settings
+        self.settings = settings or CropSettings()
         self.concurrent = bool(getattr(estimator, "concurrent", False))
 
     def plan(self, frame_w: int, frame_h: int, people: np.ndarray, moving: np.ndarray, full: bool,
