@@ -28,16 +28,33 @@ from typing import TYPE_CHECKING, BinaryIO
 import numpy as np
 
 from redact.provenance import merkle
-from redact.redaction.obscure import ObscureRecord, ObscureRegion, Reason, add_people, add_plan, figures_for
+from redact.redaction.obscure import (
+    BoxArea,
+    ObscureRecord,
+    ObscureRegion,
+    Reason,
+    add_people,
+    add_plan,
+    figures_for,
+)
 from redact.redaction.quality import QualityMonitor, encode_quality_line
-from redact.redaction.regions import RegionSettings, person_region
+from redact.redaction.regions import Region, RegionSettings, person_region
 from redact.redaction.render import Obscurer, RenderSettings, obscure_all, render_record
+from redact.redaction.unexplained import (
+    Unexplained,
+    UnexplainedHold,
+    UnexplainedSettings,
+    covered_mask,
+    unexplained,
+)
 from redact.skeletons import rows
+from redact.vision.boxes import intersections
 from redact.vision.records import Tracks
 
 if TYPE_CHECKING:
     from redact.media.video import Frame
     from redact.redaction.plan import FrameDecision
+    from redact.vision.scene import FrameScene
 
 #: Quality flag of a frame where a person a plan keeps visible is obscured because they overlap someone.
 KEPT_OVERLAP_FLAG = "kept_overlap"
@@ -46,12 +63,14 @@ KEPT_OVERLAP_FLAG = "kept_overlap"
 @dataclass(frozen=True)
 class FrameWork:
     """One tracked frame handed to the finisher: tracks None when the frame failed (error says
-    why); decision: the plan's decision for it, None without a plan."""
+    why); decision: the plan's decision for it, None without a plan; scene: what the motion net
+    and light meter read of it (None when off or failed)."""
 
     frame: Frame
     tracks: Tracks | None
     decision: FrameDecision | None = None
     error: str | None = None
+    scene: FrameScene | None = None
 
 
 @dataclass
@@ -70,6 +89,10 @@ class RunStats:
     new_tracks: int = 0
     figure_frames: int = 0
     reasons: dict[str, int] = field(default_factory=dict)
+    motion_frames: list[int] = field(default_factory=list)
+    motion_areas: int = 0
+    motion_flagged: int = 0
+    motion_states: dict[str, int] = field(default_factory=dict)
 
     def people(self, index: int, tracks: Tracks) -> None:
         if len(tracks):
@@ -115,6 +138,16 @@ class _Held:
     flags: tuple[str, ...]
 
 
+def _touches_kept(region: ObscureRegion, held: _Held) -> bool:
+    """Whether region reaches a person the plan keeps visible in the held frame."""
+    kept, tracks = held.record.kept_ids, held.tracks
+    if not kept or tracks is None:
+        return False
+    boxes = tracks.boxes[np.isin(tracks.ids, kept)]
+    x0, y0, x1, y1 = region.geometry.rect
+    return bool(len(boxes)) and bool(intersections(np.array([[x0, y0, x1, y1]], np.float64), boxes).max() > 0)
+
+
 class LookBack:
     """Holds the last `frames` frames back; `push` adds one and returns those old enough to finish.
 
@@ -131,9 +164,12 @@ class LookBack:
         self.pending: deque[_Held] = deque()
         self.seen: set[int] = set()
 
-    def push(self, held: _Held, obscured: Tracks | None, frame_ids: Iterable[int]) -> list[_Held]:
+    def push(self, held: _Held, obscured: Tracks | None, frame_ids: Iterable[int],
+             arrivals: Iterable[ObscureRegion] = (), arrival_flag: str | None = None) -> list[_Held]:
         """obscured: the people obscured in this frame (None for a failed frame); frame_ids: every
-        track id of the frame, including people kept visible (they are not new later)."""
+        track id of the frame, including people kept visible (they are not new later); arrivals:
+        regions of movement first seen in this frame (redact.redaction.unexplained), obscured in
+        the held-back frames as a new person is, which then carry arrival_flag for review."""
         new = [k for k, i in enumerate(obscured.ids.tolist()) if i not in self.seen] if obscured is not None else []
         self.seen.update(int(i) for i in frame_ids)
         if new and obscured is not None:
@@ -149,6 +185,14 @@ class LookBack:
                 for item in self.pending:
                     item.record = item.record.add(region, over=True)
                     self.stats.lookback_frames.append(item.frame.index)
+        for region in arrivals:
+            for item in self.pending:
+                if _touches_kept(region, item):
+                    continue  # a person a plan keeps visible stays visible in the frames before
+                item.record = item.record.add(region, over=True)
+                self.stats.lookback_frames.append(item.frame.index)
+                if arrival_flag and arrival_flag not in item.flags:
+                    item.flags = item.flags + (arrival_flag,)
         self.pending.append(held)
         out = []
         while len(self.pending) > self.frames:
@@ -159,6 +203,90 @@ class LookBack:
         out = list(self.pending)
         self.pending.clear()
         return out
+
+
+class MotionCover:
+    """Obscures movement that no obscured or kept person explains (redact.redaction.unexplained),
+    in frame order, and says which review flags the frame's scene reading raises.
+
+    Flags: "unexplained_motion" (an unexplained area could be a missed person), "camera_moved"
+    (the motion net is relearning the view after the camera moved; it cannot vouch for these
+    frames), "lighting_change" (the whole frame changed at once), "dim" (the frame is much darker
+    than this scene usually is). Learning at the start of a clip is not flagged: it is the same
+    for every clip, and the detector's sweep covers the first frame.
+    """
+
+    def __init__(self, settings: UnexplainedSettings, fps: float, min_person_height: float,
+                 regions: RegionSettings, stats: RunStats):
+        self.settings = settings
+        self.min_person_height = float(min_person_height)
+        self.regions = regions
+        self.stats = stats
+        self.hold = UnexplainedHold(settings, fps)
+        self._previous = np.zeros((0, 4), np.float32)
+        self._relearning = False
+
+    def __call__(self, work: FrameWork, record: ObscureRecord) -> Produced:
+        """The record with motion regions added, this frame's flags, and its new movement for the look-back."""
+        scene, stats = work.scene, self.stats
+        fg = scene.foreground if scene is not None else None
+        if fg is not None:
+            stats.motion_states[fg.state] = stats.motion_states.get(fg.state, 0) + 1
+        if record.fault is not None:  # obscured whole already; keep the hold in step
+            self.hold.step(Unexplained.none())
+            self._previous = np.zeros((0, 4), np.float32)
+            return Produced(record)
+        flags: list[str] = []
+        if scene is not None and scene.light.relative_dim:
+            flags.append("dim")
+        if fg is None:
+            return Produced(record, tuple(flags))
+        if fg.state == "camera_moved":
+            self._relearning = True
+        elif fg.state == "ok":
+            self._relearning = False
+        if self._relearning:
+            flags.append("camera_moved")
+        elif fg.state == "lighting_change":
+            flags.append("lighting_change")
+        polygons: list[np.ndarray] = []
+        rects: list[tuple[int, int, int, int]] = []
+        for r in record.regions:
+            g = r.geometry
+            if isinstance(g, Region):
+                polygons.extend(g.polygons)
+            else:
+                rects.append(g.rect)
+        tracks, decision = work.tracks, work.decision
+        if tracks is not None and decision is not None and decision.kept_ids:
+            # a person a plan keeps visible explains their own movement; it is not to be obscured
+            shape = (record.height, record.width)
+            for k in np.flatnonzero(np.isin(tracks.ids, decision.kept_ids)):
+                polygons.extend(person_region(tracks.boxes[k], tracks.keypoints[k], float(tracks.margin[k]),
+                                              shape, self.regions).polygons)
+        found = unexplained(fg, covered_mask(fg, polygons, rects, record.whole_frame), self.settings,
+                            record.width, record.height, self.min_person_height)
+        boxes = self.hold.step(found)
+        for box in boxes:
+            area = BoxArea.clipped(box, record.width, record.height)
+            if not area.empty:
+                record = record.add(ObscureRegion(area, (Reason("motion"),)))
+        arrivals = []
+        for box in found.boxes:
+            if not len(self._previous) or intersections(box[None], self._previous).max() <= 0:
+                area = BoxArea.clipped(box, record.width, record.height)
+                if not area.empty:
+                    arrivals.append(ObscureRegion(area, (Reason("motion", detail="look-back"),)))
+        self._previous = found.boxes
+        if len(boxes):
+            stats.motion_frames.append(record.frame)
+            stats.motion_areas += len(found.boxes)
+        flag = None
+        if found.flag.any():
+            flags.append("unexplained_motion")
+            stats.motion_flagged += 1
+            flag = "unexplained_motion"
+        return Produced(record, tuple(flags), tuple(arrivals), flag)
 
 
 @dataclass(frozen=True)
@@ -176,19 +304,30 @@ class FrameSinks:
     records: Callable[[ObscureRecord], None] | None = None
 
 
-#: A stage that adds to a frame's obscure record: (the tracked frame, its record so far) → new record.
-Producer = Callable[[FrameWork, ObscureRecord], ObscureRecord]
+@dataclass(frozen=True)
+class Produced:
+    """What a producer stage made of one frame: the record with its regions added, review flags
+    for the frame, and regions new in this frame that the look-back also puts on the frames it
+    still holds (carrying lookback_flag there, when given)."""
+
+    record: ObscureRecord
+    flags: tuple[str, ...] = ()
+    lookback: tuple[ObscureRegion, ...] = ()
+    lookback_flag: str | None = None
+
+
+#: A stage that adds to a frame's obscure record: (the tracked frame, its record so far) → Produced.
+Producer = Callable[[FrameWork, ObscureRecord], Produced]
 
 
 class FrameFinisher:
     """`finish(work)` once per tracked frame, in frame order, then `flush()` once at the end.
 
     producers: further stages that add regions to each frame's record after `frame_record`, in
-    order (a motion net, for instance). Each sees every frame in order, failed ones included (so
-    a stage with state, such as a background model, stays in step; record.fault is set on a
-    failed frame, whose record is the whole frame already); on a frame that has not
-    failed, a producer that raises fails that frame closed; on a failed frame, what it raises is
-    ignored (the frame is obscured whole anyway).
+    order (the motion net's MotionCover). Each sees every frame in order, failed ones included (so
+    a stage with state stays in step; record.fault is set on a failed frame, whose record is the
+    whole frame already); on a frame that has not failed, a producer that raises fails that frame
+    closed; on a failed frame, what it raises or adds is ignored (it is obscured whole anyway).
     """
 
     def __init__(self, style: RenderSettings, detect_every: int, obscurer: Obscurer, lookback: LookBack,
@@ -206,22 +345,34 @@ class FrameFinisher:
                 record = frame_record(work, self.style, self.detect_every)
             except Exception as e:  # fail closed: whatever went wrong, this frame shows nobody
                 tracks, error = None, type(e).__name__
-        obscured: Tracks | None = None
-        frame_ids: list[int] = []
-        flags: tuple[str, ...] = ()
         if tracks is None or record is None:
             tracks, record = None, ObscureRecord.failed(frame.index, w, h, error or "unknown")
+        flags: tuple[str, ...] = ()
+        arrivals: list[ObscureRegion] = []
+        arrival_flag: str | None = None
         for produce in self.producers:
             try:
-                record = produce(work, record)
+                made = produce(work, record)
             except Exception as e:  # fail closed, as above (a failed frame stays failed)
                 if tracks is not None:
                     tracks, record = None, ObscureRecord.failed(frame.index, w, h, type(e).__name__)
-        if tracks is not None:
+                continue
+            if tracks is not None:
+                record = made.record
+                flags += tuple(f for f in made.flags if f not in flags)
+                arrivals.extend(made.lookback)
+                arrival_flag = arrival_flag or made.lookback_flag
+        obscured: Tracks | None = None
+        frame_ids: list[int] = []
+        if tracks is None:
+            flags, arrivals, arrival_flag = (), [], None
+        else:
             obscured = tracks if decision is None else decision.obscure
             frame_ids = tracks.ids.tolist()
-            flags = (KEPT_OVERLAP_FLAG,) if decision is not None and decision.overlap_ids else ()
-        for ready in self.lookback.push(_Held(frame, tracks, record, flags), obscured, frame_ids):
+            if decision is not None and decision.overlap_ids:
+                flags = (KEPT_OVERLAP_FLAG,) + flags
+        for ready in self.lookback.push(_Held(frame, tracks, record, flags), obscured, frame_ids, arrivals,
+                                        arrival_flag):
             self._write(ready)
 
     def flush(self) -> None:

@@ -23,7 +23,7 @@ import numpy as np
 
 from redact import __version__, fsio
 from redact.errors import InputError, NoSpaceError, OutputError, RedactError
-from redact.finishing import FrameFinisher, FrameSinks, FrameWork, LookBack, RunStats
+from redact.finishing import FrameFinisher, FrameSinks, FrameWork, LookBack, MotionCover, RunStats
 from redact.formats.tracks_json import TrackRecord, encode_tracks
 from redact.media.stages import WriteBehind, depth_for, read_ahead
 from redact.provenance import package
@@ -33,6 +33,7 @@ from redact.provenance.predicate import (
     Disclosure,
     FaultCounts,
     ModelRecord,
+    MotionCounts,
     Predicate,
     ReviewCounts,
     SourceRecord,
@@ -44,8 +45,11 @@ from redact.redaction.background import Background
 from redact.redaction.obscure import ObscureRecord
 from redact.redaction.quality import QualityMonitor, ReviewRange, ReviewRules, review_document
 from redact.redaction.render import Obscurer, RenderSettings, obscurer_for
+from redact.redaction.unexplained import UnexplainedSettings
 from redact.vision.pose import PoseEstimator, PoseSettings
 from redact.vision.records import Tracks
+from redact.vision.scene import SceneSettings
+from redact.vision.search import SearchSettings
 from redact.vision.track import TrackerConfig, TrackSummary
 from redact.vision.tracking import FALLBACK_FPS, Estimator, TrackedFrame, TrackIdSettings, TrackingPass
 
@@ -88,6 +92,9 @@ class ProcessSettings:
     threads: int | None = None
     crf: int = 20
     background_samples: int = 32
+    search: SearchSettings = field(default_factory=SearchSettings)
+    scene: SceneSettings = field(default_factory=SceneSettings)
+    unexplained: UnexplainedSettings = field(default_factory=UnexplainedSettings)
 
     def __post_init__(self) -> None:
         if not 0 <= self.coast_seconds <= 60:
@@ -102,7 +109,8 @@ class ProcessSettings:
     @property
     def ids(self) -> TrackIdSettings:
         """The settings that decide track ids (a track sheet made with the same ones names the same people)."""
-        return TrackIdSettings(self.pose, self.tracker, self.coast_seconds, self.detect_every)
+        return TrackIdSettings(self.pose, self.tracker, self.coast_seconds, self.detect_every, self.search,
+                               self.scene)
 
     def lookback_frames(self, fps: float) -> int:
         """Frames held back for the look-back at frame rate fps (FALLBACK_FPS when unknown)."""
@@ -475,6 +483,7 @@ class _Streamed:
     stats: RunStats
     monitor: QualityMonitor
     summaries: list[TrackSummary]
+    search: dict
 
 
 def _log_start(run: _Run, params: dict, log: TransformLog) -> None:
@@ -483,7 +492,8 @@ def _log_start(run: _Run, params: dict, log: TransformLog) -> None:
     log.append("probe", **{k: v for k, v in info.as_dict().items() if k != "path"}, name=run.source.name)
     log.append("model", id=entry.id, sha256=entry.sha256, licence=entry.licence, runtime="onnxruntime-cpu",
                threads=params["threads"], frames_at_once=params["model_frames"])
-    log.append("detection", **params["pose"], detect_every=params["detect_every"])
+    log.append("detection", **params["pose"], detect_every=params["detect_every"], search=params["search"],
+               scene=params["scene"])
     log.append("tracking", **params["tracker"], coast_seconds=params["coast_seconds"])
     if run.background is not None:
         log.append("background", samples=params["background_samples"],
@@ -514,7 +524,9 @@ def _stream(run: _Run, out: _Outputs) -> _Streamed:
             open(pkg_dir / package.FRAMES, "wb") as frames_out:
         sinks = FrameSinks(encoder.submit, skel, qual, frames_out, info.frames, run.progress,
                            _storing(store, run.records))
-        finisher = FrameFinisher(s.render, s.detect_every, run.obscurer, lookback, monitor, stats, sinks)
+        producers = (MotionCover(s.unexplained, run.fps, s.search.windows.min_person_height, s.render.regions, stats),
+                     ) if s.scene.motion.enabled else ()
+        finisher = FrameFinisher(s.render, s.detect_every, run.obscurer, lookback, monitor, stats, sinks, producers)
         # Detection may run on several frames at once; tracking stays here, in frame order.
         # Obscure records, the look-back, rendering, rows and quality run in one thread behind,
         # overlapping the next inferences.
@@ -529,7 +541,7 @@ def _stream(run: _Run, out: _Outputs) -> _Streamed:
         finisher.flush()
         encoder.close()
     return _Streamed(n_frames, writer.frames_written, reader.sha256, reader.bytes, reader.stopped_early,
-                     reader.corrupt_frames, stats, monitor, tracking.summary())
+                     reader.corrupt_frames, stats, monitor, tracking.summary(), tracking.search.record())
 
 
 def _storing(store, records: Callable[[ObscureRecord], None] | None) -> Callable[[ObscureRecord], None]:
@@ -544,12 +556,12 @@ def _storing(store, records: Callable[[ObscureRecord], None] | None) -> Callable
 def _decide(plan: Plan | None, item: TrackedFrame) -> FrameWork:
     """The plan's decision for one tracked frame; a decision that raises fails the frame (closed)."""
     if item.tracks is None or plan is None:
-        return FrameWork(item.frame, item.tracks, None, item.error)
+        return FrameWork(item.frame, item.tracks, None, item.error, item.scene)
     try:
         return FrameWork(item.frame, item.tracks, plan.decide(item.frame.index, item.frame.t, item.tracks,
-                                                              item.frame.image.shape))
+                                                              item.frame.image.shape), scene=item.scene)
     except Exception as e:  # fail closed: the finisher obscures the whole frame
-        return FrameWork(item.frame, None, None, type(e).__name__)
+        return FrameWork(item.frame, None, None, type(e).__name__, item.scene)
 
 
 def _run(run: _Run, out: _Outputs) -> ProcessResult:
@@ -572,6 +584,10 @@ def _run(run: _Run, out: _Outputs) -> ProcessResult:
                frames_with_figures=stats.figure_frames, regions_by_reason=dict(sorted(stats.reasons.items())),
                lookback_seconds=params["lookback_seconds"], lookback_window_frames=params["lookback_window_frames"],
                new_people=stats.new_tracks, lookback_frames=frame_ranges(sorted(set(stats.lookback_frames))))
+    log.append("search", **seen.search)
+    motion = _motion_counts(stats, s)
+    log.append("motion", **motion.to_json(), frames=frame_ranges(stats.motion_frames),
+               action="moving areas no tracked person explains are obscured; never skeleton rows")
     if stats.faults:
         log.append("fault", frames=frame_ranges(stats.faults), count=len(stats.faults),
                    reasons=stats.fault_reasons, action="frame fully obscured")
@@ -617,6 +633,7 @@ def _run(run: _Run, out: _Outputs) -> ProcessResult:
         disclosure=Disclosure.of(run.disclosure),
         review=ReviewCounts(len(review), monitor.flagged),
         faults=FaultCounts(len(stats.faults)),
+        motion=motion,
         plan=None if plan is None else plan.record(),
         audit=None if audit_result is None else AuditRecord.of(audit_result),
         tool=ToolRecord("redact", __version__),
@@ -628,6 +645,13 @@ def _run(run: _Run, out: _Outputs) -> ProcessResult:
     return ProcessResult(out.out_dir, out.video, out.package, seen.frames, len(summaries), tuple(stats.faults),
                          tuple(review), time.perf_counter() - run.started, seen.stopped_early,
                          run.signer.key_id, seen.sha256, audit_result)
+
+
+def _motion_counts(stats: RunStats, settings: ProcessSettings) -> MotionCounts:
+    """What the motion net did over the run, for the log and the signed statement."""
+    return MotionCounts(enabled=settings.scene.motion.enabled, frames_obscured=len(stats.motion_frames),
+                        areas=stats.motion_areas, frames_flagged=stats.motion_flagged,
+                        states=dict(sorted(stats.motion_states.items())))
 
 
 def _tracks_json(summaries: list[TrackSummary]) -> bytes:

@@ -77,7 +77,8 @@ def test_records_come_one_per_frame_in_order_with_every_reason(recorded):
     clip, _, result, records, _ = recorded
     assert [r.frame for r in records] == list(range(result.frames)) and result.frames == 50
     kinds = {w.kind for r in records for reg in r.regions for w in reg.reasons}
-    assert kinds == {"person", "lookback", "plan", "fault"}
+    # "motion": the motion net obscures what moves outside every person's region (redact.finishing.MotionCover)
+    assert kinds == {"person", "lookback", "plan", "fault", "motion"}
     assert {r.frame for r in records if r.fault} == FAULTS
     assert all(r.fault == "RuntimeError" for r in records if r.frame in FAULTS)
     plan_whole = [r.frame for r in records if r.whole_frame and not r.fault]
@@ -208,7 +209,7 @@ def test_added_producers_see_every_frame_in_order_and_fail_closed():
     import io
     from fractions import Fraction
 
-    from redact.finishing import FrameFinisher, FrameSinks, FrameWork, LookBack, RunStats
+    from redact.finishing import FrameFinisher, FrameSinks, FrameWork, LookBack, Produced, RunStats
     from redact.media.video import Frame
     from redact.redaction.quality import QualityMonitor
 
@@ -219,12 +220,12 @@ def test_added_producers_see_every_frame_in_order_and_fail_closed():
 
     def motion(work, record):
         seen.append((work.frame.index, record.fault))
-        return record.add(ObscureRegion(BoxArea((20, 10, 60, 30)), (Reason("motion", detail="blob"),)))
+        return Produced(record.add(ObscureRegion(BoxArea((20, 10, 60, 30)), (Reason("motion", detail="blob"),))))
 
     def flaky(work, record):
         if work.frame.index in (2, 4):
             raise ZeroDivisionError("injected")
-        return record
+        return Produced(record)
 
     encoded: list[np.ndarray] = []
     records: list[ObscureRecord] = []

@@ -89,8 +89,13 @@ def test_run_settings_carry_exactly_their_id_settings():
 def test_every_id_setting_changes_the_fingerprint():
     base = TrackIdSettings()
     fp = ids_fingerprint(base, "0" * 64)
+    from redact.vision.motion import MotionSettings
+    from redact.vision.scene import SceneSettings
+    from redact.vision.search import SearchSettings
+
     changed = {"pose": PoseSettings(nms_iou=0.5), "tracker": TrackerConfig(max_cost=0.7), "coast_seconds": 2.0,
-               "detect_every": 3}
+               "detect_every": 3, "search": SearchSettings(full_every=2),
+               "scene": SceneSettings(motion=MotionSettings(enabled=False))}
     assert set(changed) == {f.name for f in dataclasses.fields(TrackIdSettings)}
     for name, value in changed.items():
         assert ids_fingerprint(dataclasses.replace(base, **{name: value}), "0" * 64) != fp, name

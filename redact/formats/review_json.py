@@ -43,6 +43,10 @@ REASON_WORDS: dict[str, str] = {
     "kept_overlap": "a person left visible overlaps someone obscured",
     "low_confidence": "detector unsure of body points",
     "low_contrast": "low contrast",
+    "dim": "much darker than this scene usually is",
+    "unexplained_motion": "movement no tracked person explains (obscured anyway)",
+    "camera_moved": "camera moved; the motion check is relearning the view",
+    "lighting_change": "the whole picture changed at once (light)",
     # what the independent audit (redact.redaction.audit) finds
     "face": "a face found in the redacted video",
     "person": "a person found on picture pixels (not on the redaction's own fill)",

@@ -132,8 +132,10 @@ class Actor:
 class SceneSpec:
     """A scene: size, rate, length, actors (in paint order), background kind, optional dim stretch.
 
-    dim_region [x0, y0, x1, y1) is multiplied by dim_factor after pasting; noise is the sigma of
-    per-frame sensor noise (grey levels, seeded per frame).
+    dim_region [x0, y0, x1, y1) is multiplied by dim_factor after pasting, during dim_seconds
+    (start, end) only when that is given; blur is the sigma in pixels of a Gaussian blur of the
+    whole picture (optics, focus), applied before noise; noise is the sigma of per-frame sensor
+    noise (grey levels, seeded per frame).
     """
 
     width: int
@@ -144,6 +146,8 @@ class SceneSpec:
     background: str = "hall"
     dim_region: tuple[int, int, int, int] | None = None
     dim_factor: float = 0.3
+    dim_seconds: tuple[float, float] | None = None
+    blur: float = 0.0
     noise: float = 0.0
     seed: int = 0
 
@@ -311,12 +315,17 @@ def render_frame(spec: SceneSpec, index: int, background: np.ndarray | None = No
         full = (x0 + fx.min(), y0 + fy.min(), x0 + fx.max() + 1, y0 + fy.max() + 1)
         partial[a] = tuple(rects[a]) != full
     dimmed = np.zeros(n, bool)
-    if spec.dim_region is not None:
+    dim_now = spec.dim_seconds is None or spec.dim_seconds[0] - 1e-9 <= t < spec.dim_seconds[1] - 1e-9
+    if spec.dim_region is not None and dim_now:
         dx0, dy0, dx1, dy1 = _clip(spec.dim_region, W, H)
         if dx1 > dx0:
             sub = img[dy0:dy1, dx0:dx1].astype(np.float32) * np.float32(spec.dim_factor)
             img[dy0:dy1, dx0:dx1] = np.clip(np.rint(sub), 0, 255).astype(np.uint8)
             dimmed = visible & (rects[:, 0] < dx1) & (rects[:, 2] > dx0) & (rects[:, 1] < dy1) & (rects[:, 3] > dy0)
+    if spec.blur > 0:
+        import cv2  # noqa: PLC0415
+
+        img = cv2.GaussianBlur(img, (0, 0), spec.blur)
     if spec.noise > 0:
         rng = np.random.default_rng([spec.seed, index])
         img = np.clip(img.astype(np.float32) + rng.normal(0.0, spec.noise, img.shape[:2])[:, :, None].astype(np.float32),

@@ -26,8 +26,8 @@ from redact.errors import PackageError
 # A URN in the project's own name claims nobody's domain; change it here and in the schema's const.
 PREDICATE_TYPE = "urn:redact:skeleton-package:v1"
 DISCLOSURE_FIELDS = ("date", "recipient", "organisation", "purpose", "request_reference")
-TOP_LEVEL_KEYS = ("source", "model", "parameters", "privacy", "disclosure", "review", "faults", "plan", "audit",
-                  "parent", "human_review", "tool", "created", "log")
+TOP_LEVEL_KEYS = ("source", "model", "parameters", "privacy", "disclosure", "review", "faults", "motion", "plan",
+                  "audit", "parent", "human_review", "tool", "created", "log")
 _HEX64 = re.compile(r"[0-9a-f]{64}")
 _FPS = re.compile(r"(0|[1-9][0-9]*)/[1-9][0-9]*")
 # RFC 3339 date-time in UTC ("Z"), as in-toto's Timestamp field type requires.
@@ -253,6 +253,37 @@ class FaultCounts:
 
 
 @dataclass(frozen=True)
+class MotionCounts:
+    """What the motion net obscured: whether it ran, frames with obscured moving areas, areas
+    found, frames flagged for unexplained motion, and frames per motion state (ok, learning,
+    camera_moved, lighting_change)."""
+
+    enabled: bool
+    frames_obscured: int
+    areas: int
+    frames_flagged: int
+    states: Mapping[str, int]
+
+    def __post_init__(self) -> None:
+        object.__setattr__(self, "states", freeze(dict(self.states)))
+
+    def to_json(self) -> dict:
+        return {"enabled": self.enabled, "frames_obscured": self.frames_obscured, "areas": self.areas,
+                "frames_flagged": self.frames_flagged, "states": thaw(self.states)}
+
+    @classmethod
+    def parse(cls, obj: Any, where: str = "predicate.motion") -> MotionCounts:
+        f = _Fields(obj, where)
+        states = f.object("states")
+        for k, v in states.items():
+            if not isinstance(v, int) or isinstance(v, bool) or v < 0:
+                raise PackageError(f"{where}.states.{k}: must be a non-negative integer")
+        r = cls(f.flag("enabled"), f.count("frames_obscured"), f.count("areas"), f.count("frames_flagged"), states)
+        f.done()
+        return r
+
+
+@dataclass(frozen=True)
 class AuditRecord:
     """The independent scan of the redacted video (redact.redaction.audit), in totals: source_faces
     and survived are None when no source was scanned."""
@@ -369,6 +400,7 @@ class Predicate:
     plan: Mapping[str, Any] | None = None
     audit: AuditRecord | None = None
     parent: ParentRecord | None = None
+    motion: MotionCounts | None = None
     log: LogRecord | None = field(default=None)
     human_review: Mapping[str, Any] | None = None  # a reviewed copy: as redact.review.outputs records it
 
@@ -388,6 +420,7 @@ class Predicate:
             "disclosure": self.disclosure.to_json(),
             "review": self.review.to_json(),
             "faults": self.faults.to_json(),
+            "motion": None if self.motion is None else self.motion.to_json(),
             "plan": thaw(self.plan),
             "audit": None if self.audit is None else self.audit.to_json(),
             "parent": None if self.parent is None else self.parent.to_json(),
@@ -418,6 +451,7 @@ class Predicate:
             disclosure=sub("disclosure", Disclosure.parse),
             review=sub("review", ReviewCounts.parse),
             faults=sub("faults", FaultCounts.parse),
+            motion=sub("motion", MotionCounts.parse, nullable=True),
             plan=f.object("plan", nullable=True),
             audit=sub("audit", AuditRecord.parse, nullable=True),
             parent=sub("parent", ParentRecord.parse, nullable=True),

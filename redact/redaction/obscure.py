@@ -258,6 +258,20 @@ class ObscureRecord:
                     return why.detail or "unknown"
         return None
 
+    def mask(self) -> np.ndarray:
+        """bool [height, width]: every pixel some region obscures (the figures are drawn on top)."""
+        m = np.zeros((self.height, self.width), bool)
+        for r in self.regions:
+            g = r.geometry
+            if isinstance(g, WholeFrame):
+                m[:] = True
+                break
+            if g.empty:
+                continue
+            x0, y0, x1, y1 = g.rect
+            m[y0:y1, x0:x1] |= g.crop_mask()
+        return m
+
     def reason_counts(self) -> dict[str, int]:
         """How many regions name each reason kind (a region with two kinds counts for both)."""
         out: dict[str, int] = {}

@@ -88,12 +88,14 @@ class _HasIdSettings(Protocol):
 
 def ids_fingerprint(settings: TrackIdSettings | _HasIdSettings, model_sha256: str) -> str:
     """SHA-256 hex over every setting that decides track ids (redact.vision.tracking.TrackIdSettings:
-    pose settings, tracker settings, coast time, detection stride) and the model's hash. A track
-    sheet and a run agree on ids only when these agree (and the source file is the same); render,
-    encode and package settings do not matter."""
+    pose settings, tracker settings, coast time, detection stride, where the model looks, the
+    motion net and light meter that steer it) and the model's hash. A track sheet and a run agree
+    on ids only when these agree (and the source file is the same); render, encode and package
+    settings do not matter."""
     ids = settings if isinstance(settings, TrackIdSettings) else settings.ids
     doc = {"pose": asdict(ids.pose), "tracker": asdict(ids.tracker), "coast_seconds": ids.coast_seconds,
-           "detect_every": int(ids.detect_every), "model_sha256": model_sha256}
+           "detect_every": int(ids.detect_every), "search": asdict(ids.search), "scene": asdict(ids.scene),
+           "model_sha256": model_sha256}
     return hashlib.sha256(jsonio.dumps(doc)).hexdigest()
 
 

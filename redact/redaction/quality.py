@@ -37,8 +37,8 @@ BT601 = (0.299, 0.587, 0.114)
 #: Longer side of the grey image the measures are computed on.
 ANALYSIS_SIDE = 320
 
-REASONS: tuple[str, ...] = ("blurred", "coasting", "count_drop", "dark", "fault", "kept_overlap", "low_confidence",
-                            "low_contrast")
+REASONS: tuple[str, ...] = ("blurred", "camera_moved", "coasting", "count_drop", "dark", "dim", "fault", "kept_overlap",
+                            "lighting_change", "low_confidence", "low_contrast", "unexplained_motion")
 
 
 @dataclass(frozen=True)

@@ -92,10 +92,12 @@ class Unexplained:
 def unexplained(fg: Foreground, covered: np.ndarray, settings: UnexplainedSettings, frame_w: int, frame_h: int,
                 min_person_height: float) -> Unexplained:
     """Boxes around moving pixels outside `covered` (bool at the net's scale), grown by the margin."""
-    m = (fg.mask & ~covered).astype(np.uint8)
+    # Noise is removed from the moving pixels before the covered part is taken away, so that the
+    # thin edge of a walker sticking out of their region (a box a frame behind) survives.
+    moving = cv2.morphologyEx(fg.mask.astype(np.uint8), cv2.MORPH_OPEN, _OPEN).astype(bool)
+    m = (moving & ~covered).astype(np.uint8)
     if not m.any():
         return Unexplained.none()
-    m = cv2.morphologyEx(m, cv2.MORPH_OPEN, _OPEN)
     m = cv2.dilate(m, _JOIN)
     n, labels, stats, _ = cv2.connectedComponentsWithStats(m, connectivity=8)
     keep = np.flatnonzero(stats[1:, cv2.CC_STAT_AREA] >= settings.min_area) + 1

@@ -235,6 +235,7 @@ def derive(parent: Path, out: Path, trusted_keys: Sequence, signer, options: Pri
         # Carried from the parent as they are: what the source, model and run were.
         predicate = Predicate(source=pred.source, model=pred.model, parameters=pred.parameters, privacy=record,
                               disclosure=Disclosure.of(disclosure), review=pred.review, faults=pred.faults,
+                              motion=pred.motion,
                               parent=parent_rec, tool=ToolRecord("redact", __version__), created=utc_now())
         payload = write_package(staging, out, predicate, signer, video=None, archive=archive)
     finally:

@@ -121,13 +121,15 @@ def _place(x0: float, x1: float, limit: float) -> tuple[float, float]:
     return x0, x1
 
 
-def person_windows(boxes: np.ndarray, frame_w: int, frame_h: int, settings: CropSettings) -> list[Window]:
+def person_windows(boxes: np.ndarray, frame_w: int, frame_h: int, settings: CropSettings,
+                   min_scale: float = 0.0) -> list[Window]:
     """Windows [one per group of nearby people] for boxes [K, 4] x1, y1, x2, y2 in source pixels.
 
     Each box gets a window of its person plus `context` at the scale that brings it to the
-    target height; windows are then merged greedily, smallest people first, while one merged
-    window costs no more model pixels than the two apart (at the larger of the two scales, so
-    the smaller person keeps their size) and stays within max_side.
+    target height, and never below min_scale (a window must not show a person smaller than the
+    whole-frame pass would); windows are then merged greedily, smallest people first, while one
+    merged window costs no more model pixels than the two apart (at the larger of the two scales,
+    so the smaller person keeps their size) and stays within max_side.
     """
     boxes = np.asarray(boxes, np.float64).reshape(-1, 4)
     items: list[tuple[float, float, float, float, float]] = []
@@ -135,7 +137,7 @@ def person_windows(boxes: np.ndarray, frame_w: int, frame_h: int, settings: Crop
         if not (np.isfinite([x1, y1, x2, y2]).all() and x2 > x1 and y2 > y1):
             continue
         h = max(y2 - y1, settings.min_person_height)
-        k = settings.scale_for(h)
+        k = max(settings.scale_for(h), min_scale)
         pad = settings.context * h
         cx = (x1 + x2) / 2
         half_w = max((x2 - x1) / 2, h / 4) + pad

@@ -20,9 +20,9 @@ from dataclasses import dataclass
 import cv2
 import numpy as np
 
-from redact.vision.costs import iou_matrix
+from redact.vision.boxes import Letterbox, box_areas, intersections, iou_matrix, nms
 from redact.vision.crops import CropSettings, Window, person_windows, sweep_windows
-from redact.vision.pose import PAD_VALUE, Letterbox, PoseEstimator, as_rgb, decode, nms
+from redact.vision.pose import PAD_VALUE, PoseEstimator, as_rgb, decode
 from redact.vision.records import Poses
 from redact.vision.skeleton import NUM_KEYPOINTS
 
@@ -115,15 +115,23 @@ def _grow(boxes: np.ndarray, frac: float) -> np.ndarray:
     return boxes + np.stack([-w, -h, w, h], axis=1) * frac
 
 
+def _drop_parts(boxes: np.ndarray) -> np.ndarray:
+    """Boxes minus those lying mostly (half or more) inside a box at least 1.5 times as tall: a
+    small box inside a tall person is a part of them (a head, a swinging arm, a duplicate), and an
+    enlarging window on it would find that part again as a "person" of its own."""
+    if len(boxes) < 2:
+        return boxes
+    h = boxes[:, 3] - boxes[:, 1]
+    inside = intersections(boxes, boxes) / np.maximum(box_areas(boxes), 1e-9)[:, None]
+    taller = h[None, :] >= 1.5 * h[:, None]
+    part = ((inside >= 0.5) & taller).any(axis=1)
+    return boxes[~part]
+
+
 def _inside(a: np.ndarray, b: np.ndarray) -> np.ndarray:
     """For each box of a [N, 4], the largest fraction of its area inside one box of b [M, 4]."""
-    x1 = np.maximum(a[:, None, 0], b[None, :, 0])
-    y1 = np.maximum(a[:, None, 1], b[None, :, 1])
-    x2 = np.minimum(a[:, None, 2], b[None, :, 2])
-    y2 = np.minimum(a[:, None, 3], b[None, :, 3])
-    inter = np.clip(x2 - x1, 0, None) * np.clip(y2 - y1, 0, None)
-    area = np.maximum((a[:, 2] - a[:, 0]) * (a[:, 3] - a[:, 1]), 1e-9)
-    return (inter / area[:, None]).max(1)
+    area = np.maximum(box_areas(a), 1e-9)
+    return (intersections(a, b) / area[:, None]).max(1)
 
 
 def enhance_for_detection(image: np.ndarray, clip_limit: float = 2.0, tiles: int = 8) -> np.ndarray:
@@ -147,38 +155,46 @@ class PersonFinder:
         self.settings = settings or CropSettings()
         self.concurrent = bool(getattr(estimator, "concurrent", False))
 
-    def plan(self, frame_w: int, frame_h: int, people: np.ndarray, moving: np.ndarray, full: bool,
-             sweep: bool = False) -> SearchPlan:
+    def plan(self, frame_w: int, frame_h: int, people: np.ndarray, moving: np.ndarray | None, full: bool,
+             sweep: tuple[Window, ...] = ()) -> SearchPlan:
         """The search of one frame. people [K, 4]: boxes of tracked people (from a recent frame);
         moving [M, 4]: boxes of moving blobs in this frame (redact.vision.motion); both source px.
+        sweep: tiles of the sweep scheduled for this frame (redact.vision.search), searched as well.
 
-        A blob lying mostly inside a person's (grown) box adds nothing and gets no window; people
-        whom the full-frame pass already sees at the target size need no window of their own. When
-        the windows would cost more model pixels than sweeping the whole frame at the largest scale
-        among them, the sweep is used instead (many people close together).
+        A blob lying mostly inside a person's (grown) box adds nothing and gets no window, nor does
+        any box lying mostly inside a much taller one (a part of that person). People
+        too small for the whole-frame pass get windows that enlarge them to the target height.
+        People the whole-frame pass sees at the target size need nothing more on frames that run
+        it; on other frames they get windows at the whole-frame scale, unless those would cost
+        more than the whole frame, which then runs instead. When the enlarging windows would cost
+        more than sweeping the whole frame at their largest scale (many small people close
+        together), the sweep is used instead.
         """
         s = self.settings
         if not s.enabled:
             return SearchPlan(True)
-        if sweep:
-            return SearchPlan(full, tuple(sweep_windows(frame_w, frame_h, s)))
         people = np.asarray(people, np.float64).reshape(-1, 4)
-        moving = np.asarray(moving, np.float64).reshape(-1, 4)
+        moving = np.zeros((0, 4)) if moving is None else np.asarray(moving, np.float64).reshape(-1, 4)
         if len(people) and len(moving):
             moving = moving[_inside(moving, _grow(people, 0.2)) < 0.7]
-        boxes = np.concatenate([people, moving])
-        if full and len(boxes):
-            in_w, in_h = self.estimator.input_size(frame_w, frame_h)
-            full_scale = min(in_w / frame_w, in_h / frame_h)
-            boxes = boxes[(boxes[:, 3] - boxes[:, 1]) * full_scale < s.target_height]
-        windows = person_windows(boxes, frame_w, frame_h, s)
+        boxes = _drop_parts(np.concatenate([people, moving]))
+        in_w, in_h = self.estimator.input_size(frame_w, frame_h)
+        full_scale = min(in_w / frame_w, in_h / frame_h)
+        small = (boxes[:, 3] - boxes[:, 1]) * full_scale < s.target_height
+        windows = person_windows(boxes[small], frame_w, frame_h, s, min_scale=full_scale)
         if windows:
             k = max(w.scale for w in windows)
             if sum(w.pixels for w in windows) > frame_w * frame_h * k * k * 1.2:
                 windows = sweep_windows(frame_w, frame_h, CropSettings(
                     min_person_height=max(8, int(s.target_height / k)), target_height=s.target_height,
                     max_upscale=s.max_upscale, sweep_side=s.sweep_side))
-        return SearchPlan(full, tuple(windows))
+        if not full and (~small).any():
+            large = person_windows(boxes[~small], frame_w, frame_h, s, min_scale=full_scale)
+            if sum(w.pixels for w in large) >= in_w * in_h:
+                full = True
+            else:
+                windows = windows + large
+        return SearchPlan(full, tuple(windows) + tuple(sweep))
 
     def find(self, image: np.ndarray, plan: SearchPlan, enhance: bool = False) -> Poses:
         """Every person the plan's parts find, in source pixels, duplicates merged."""

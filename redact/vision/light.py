@@ -25,13 +25,15 @@ class LightSettings:
     dark: absolute mean luma (0..255) below which a frame is dim. relative: a frame whose mean
     luma is below this fraction of the reference is dim. reference_seconds: how far back the
     reference (the brightest frame mean) reaches. enhance: contrast-enhance the detector's view
-    of dim frames (CLAHE on luma, redact.vision.finder.enhance_for_detection).
+    of dim frames (CLAHE on luma, redact.vision.finder.enhance_for_detection); off by default
+    because it did not measurably raise recall on dimmed, noisy, compressed real footage
+    (benchmarks/README.md, "Dim footage").
     """
 
     dark: float = 40.0
     relative: float = 0.6
     reference_seconds: float = 30.0
-    enhance: bool = True
+    enhance: bool = False
 
     def __post_init__(self) -> None:
         if not (math.isfinite(self.dark) and 0 <= self.dark <= 255):
@@ -44,11 +46,17 @@ class LightSettings:
 
 @dataclass(frozen=True)
 class LightReading:
-    """One frame: its mean luma, the scene reference it was compared with, and the verdict."""
+    """One frame: its mean luma, the scene reference it was compared with, and the verdicts:
+    relative_dim (below `relative` × reference) and dark (below the absolute threshold)."""
 
     luma: float
     reference: float
-    dim: bool
+    relative_dim: bool
+    dark: bool
+
+    @property
+    def dim(self) -> bool:
+        return self.relative_dim or self.dark
 
 
 class LightMeter:
@@ -72,4 +80,4 @@ class LightMeter:
             self._max.popleft()
         reference = self._max[0][1]
         s = self.settings
-        return LightReading(luma, reference, luma < s.dark or luma < s.relative * reference)
+        return LightReading(luma, reference, luma < s.relative * reference, luma < s.dark)

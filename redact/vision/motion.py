@@ -173,8 +173,13 @@ class MotionDetector:
                 m = np.float32([[1, 0, -shift[0]], [0, 1, -shift[1]]])
                 grey = cv2.warpAffine(grey, m, grey.shape[::-1], borderMode=cv2.BORDER_REPLICATE)
         assert self._model is not None
+        first = self._learned == 0
         raw = self._model.apply(grey, learningRate=rate)
         self._learned += 1
+        if first:  # the model has only just seen the view: nothing can differ from it yet
+            empty = np.zeros(grey.shape, bool)
+            return Foreground(empty, scale, np.zeros((0, 4), np.float32),
+                              "camera_moved" if state == "camera_moved" else "learning", (0.0, 0.0), 0.0)
         fg = raw > 0
         if shift != (0.0, 0.0):
             # The strip a shake brought into view is new to the model, not movement.
