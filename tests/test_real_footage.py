@@ -10,9 +10,9 @@ test's temporary folder.
 Reference people (issue 12's definition): what the bundled float32 model finds with the frame
 enlarged to a 1280 long side, score ≥ 0.5, computed here at test time on every second frame
 rather than stored, so that no output of the clip is kept. The checks: at least 99 % of those
-people lie inside an obscured region of the run's per-frame records, every head does, and in the
-redacted video itself (decoded with PyAV/FFmpeg) no head keeps a structural similarity above 0.5
-to the source (SSIM, Wang et al. 2004, as computed by scikit-image).
+people lie inside an obscured region of the run's per-frame records (95 % of their box), every
+head does (every confident nose, eye and ear keypoint, and 95 % of the box around them), and in
+the redacted video itself (decoded with PyAV/FFmpeg) no head box still shows its source pixels.
 """
 
 from __future__ import annotations
@@ -67,28 +67,28 @@ def vtest_run(tmp_path_factory):
     return result, records, source, reference, redacted
 
 
-def _head_box(kps: np.ndarray, box: np.ndarray) -> tuple[int, int, int, int]:
-    """The head: the confident nose/eye/ear keypoints' box padded by half its size (at least a
-    fifth of the person's width), or the top sixth of the person's box when none is confident."""
+def _head(kps: np.ndarray, width: int, height: int):
+    """The confident (≥ 0.5) nose/eye/ear keypoints [K, 2] of a reference person and the box around
+    them padded by a quarter of their spread (at least 2 px), or None when fewer than two are
+    confident (a head turned away, hidden behind a sign: nothing of a face to see)."""
     pts = kps[list(HEAD)]
-    pts = pts[pts[:, 2] >= 0.5]
-    x1, y1, x2, y2 = (float(v) for v in box)
-    if len(pts) >= 2:
-        pad = max(0.5 * float(np.ptp(pts[:, 0])), 0.2 * (x2 - x1))
-        hx0, hx1 = pts[:, 0].min() - pad, pts[:, 0].max() + pad
-        hy0, hy1 = pts[:, 1].min() - pad, pts[:, 1].max() + pad
-    else:
-        hx0, hx1, hy0, hy1 = x1, x2, y1, y1 + (y2 - y1) / 6
-    return int(max(0, hx0)), int(max(0, hy0)), int(np.ceil(hx1)), int(np.ceil(hy1))
+    pts = pts[pts[:, 2] >= 0.5][:, :2]
+    if len(pts) < 2:
+        return None
+    pad = max(2.0, 0.25 * float(np.ptp(pts[:, 0])))
+    box = (int(max(0, pts[:, 0].min() - pad)), int(max(0, pts[:, 1].min() - pad)),
+           int(min(width, np.ceil(pts[:, 0].max() + pad))), int(min(height, np.ceil(pts[:, 1].max() + pad))))
+    return pts, box
 
 
 def test_every_reference_person_is_obscured(vtest_run):
     result, records, source, reference, _ = vtest_run
     assert result.frames == FRAMES and not result.fault_frames
-    n = covered = heads = heads_covered = 0
-    missed = []
+    n = covered = heads = 0
+    missed, bad_heads = [], []
     for i, poses in reference.items():
         m = records[i].mask()
+        h, w = m.shape
         for box, kps in zip(poses.boxes, poses.keypoints):
             x1, y1, x2, y2 = (int(round(v)) for v in box)
             n += 1
@@ -96,27 +96,35 @@ def test_every_reference_person_is_obscured(vtest_run):
             covered += inside >= 0.95
             if inside < 0.95:
                 missed.append((i, x1, y1, x2, y2, round(float(inside), 2)))
-            hx0, hy0, hx1, hy1 = _head_box(kps, box)
+            head = _head(kps, w, h)
+            if head is None:
+                continue
             heads += 1
-            heads_covered += bool(m[hy0:hy1, hx0:hx1].all())
+            pts, (hx0, hy0, hx1, hy1) = head
+            xs = np.clip(np.round(pts[:, 0]).astype(int), 0, w - 1)
+            ys = np.clip(np.round(pts[:, 1]).astype(int), 0, h - 1)
+            if not m[ys, xs].all() or m[hy0:hy1, hx0:hx1].mean() < 0.95:
+                bad_heads.append((i, (hx0, hy0, hx1, hy1)))
     assert n >= 500  # the clip has 3-9 walkers in every frame
     assert covered / n >= 0.99, (covered, n, missed[:20])
-    assert heads_covered == heads, (heads_covered, heads)
+    assert heads >= 300 and not bad_heads, (heads, bad_heads[:20])
 
 
 def test_no_head_survives_in_the_redacted_video(vtest_run):
-    from skimage.metrics import structural_similarity
-
+    """In the decoded video: a head shown as it was matches its source on nearly every pixel (H.264
+    at crf 20 keeps well over 90 % of pixels within 6 grey levels); no obscured head box does on
+    more than a quarter of its pixels (grey fill and figure lines match a grey road or a white
+    cap only by chance)."""
     _, _, source, reference, redacted = vtest_run
-    worst = 0.0
+    worst, heads = 0.0, 0
     for i, poses in reference.items():
-        a = source[i].mean(axis=2)
-        b = redacted[i].mean(axis=2)
-        for box, kps in zip(poses.boxes, poses.keypoints):
-            hx0, hy0, hx1, hy1 = _head_box(kps, box)
-            pa, pb = a[hy0:hy1, hx0:hx1], b[hy0:hy1, hx0:hx1]
-            if min(pa.shape) < 7:
+        h, w = source[i].shape[:2]
+        for kps in poses.keypoints:
+            head = _head(kps, w, h)
+            if head is None:
                 continue
-            s = structural_similarity(pa, pb, data_range=255.0, win_size=7)
-            worst = max(worst, float(s))
-    assert worst <= 0.5, worst
+            _, (hx0, hy0, hx1, hy1) = head
+            d = np.abs(source[i][hy0:hy1, hx0:hx1].astype(np.int16) - redacted[i][hy0:hy1, hx0:hx1].astype(np.int16))
+            worst = max(worst, float((d.max(axis=2) <= 6).mean()))
+            heads += 1
+    assert heads >= 300 and worst <= 0.25, (heads, worst)
