@@ -11,8 +11,13 @@ from redact.pipeline import ProcessSettings
 from redact.redaction.quality import ReviewRules
 from redact.redaction.regions import RegionSettings
 from redact.redaction.render import STYLES, RenderSettings
+from redact.vision.crops import CropSettings
+from redact.vision.light import LightSettings
 from redact.vision.models import DEFAULT_POSE_MODEL
+from redact.vision.motion import MotionSettings
 from redact.vision.pose import PoseSettings
+from redact.vision.scene import SceneSettings
+from redact.vision.search import SearchSettings
 from redact.vision.track import TrackerConfig
 
 
@@ -60,6 +65,17 @@ def _detection_options() -> list:
                           "cores, up to 4, one thread each; with --detect-every 2 or more, one frame on all "
                           "cores but one). The count is recorded: skeletons are byte-identical only with "
                           "the same count."),
+        click.option("--smallest-person", type=click.IntRange(16, 400), default=40, show_default=True,
+                     help="Height in pixels of the smallest person searched for: around people and movement "
+                          "the model looks at windows enlarged so that people this small reach the size it "
+                          "finds them at (smaller is slower; smaller people may be missed by the model, and are "
+                          "covered only while they move)."),
+        click.option("--motion-net/--no-motion-net", default=True, show_default=True,
+                     help="Obscure anything that moves outside every tracked person's region and flag it for "
+                          "review (background subtraction, no model; needs a fixed camera)."),
+        click.option("--enhance-dim", is_flag=True,
+                     help="Let the model look at a contrast-enhanced copy (CLAHE on luma) of frames darker than "
+                          "the scene usually is; the redacted video is never brightened."),
     ]
 
 
@@ -69,13 +85,15 @@ def _with(fn, decorators: list):
     return fn
 
 
-def _detection(pose_model, input_size, score_threshold, coast_seconds, detect_every, threads) -> dict:
+def _detection(pose_model, input_size, score_threshold, coast_seconds, detect_every, threads, smallest_person,
+               motion_net, enhance_dim) -> dict:
     """ProcessSettings fields from the detection options (click.BadParameter on a bad input size)."""
     if input_size % 32:
         raise click.BadParameter(f"must be a multiple of 32, got {input_size}", param_hint="--input-size")
     return {"pose": PoseSettings(model=pose_model, input_long_side=input_size, score_threshold=score_threshold),
             "tracker": TrackerConfig(), "coast_seconds": coast_seconds, "detect_every": detect_every,
-            "threads": threads}
+            "threads": threads, "search": SearchSettings(windows=CropSettings(min_person_height=smallest_person)),
+            "scene": SceneSettings(motion=MotionSettings(enabled=motion_net), light=LightSettings(enhance=enhance_dim))}
 
 
 def track_options(fn):
@@ -83,9 +101,11 @@ def track_options(fn):
     ProcessSettings passed as `settings` (everything else at its default: it does not matter there)."""
 
     @functools.wraps(fn)
-    def wrapper(*args, pose_model, input_size, score_threshold, coast_seconds, detect_every, threads, **kwargs):
+    def wrapper(*args, pose_model, input_size, score_threshold, coast_seconds, detect_every, threads,
+                smallest_person, motion_net, enhance_dim, **kwargs):
         kwargs["settings"] = ProcessSettings(**_detection(pose_model, input_size, score_threshold, coast_seconds,
-                                                          detect_every, threads))
+                                                          detect_every, threads, smallest_person, motion_net,
+                                                          enhance_dim))
         return fn(*args, **kwargs)
 
     return _with(wrapper, _detection_options())
@@ -96,9 +116,10 @@ def pipeline_options(fn):
 
     @functools.wraps(fn)
     def wrapper(*args, style, figures, margin, pose_model, input_size, score_threshold, coast_seconds, detect_every,
-                threads, crf, include_audio, archive, **kwargs):
+                threads, smallest_person, motion_net, enhance_dim, crf, include_audio, archive, **kwargs):
         kwargs["settings"] = ProcessSettings(
-            **_detection(pose_model, input_size, score_threshold, coast_seconds, detect_every, threads),
+            **_detection(pose_model, input_size, score_threshold, coast_seconds, detect_every, threads,
+                         smallest_person, motion_net, enhance_dim),
             render=RenderSettings(style=style, figure=figures, regions=RegionSettings(base_margin=margin)),
             review=ReviewRules(), include_audio=include_audio, archive=archive, crf=crf,
         )

@@ -45,6 +45,10 @@ REASON_WORDS = {
     "low_confidence": "detector unsure of body points", "coasting": "person followed without detection",
     "count_drop": "fewer people detected than just before", "fault": "frame failed and was fully obscured",
     "kept_overlap": "a person left visible overlaps someone",
+    "dim": "much darker than this scene usually is",
+    "unexplained_motion": "movement no tracked person explains (obscured anyway)",
+    "camera_moved": "camera moved; the motion check is relearning the view",
+    "lighting_change": "the whole picture changed at once (light)",
 }
 assert set(REASON_WORDS) >= set(REASONS) - {"kept_overlap"}
 
