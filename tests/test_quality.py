@@ -197,3 +197,12 @@ def test_short_lived_and_off_screen_coasting_tracks_do_not_flag():
     assert "coasting" not in m.observe(0, 0.0, img, tracks([10, 10, 50, 90], 1, False)).reasons
     assert "coasting" in m.observe(1, 0.04, img, tracks([10, 10, 50, 90], 5, False)).reasons
     assert "coasting" not in m.observe(2, 0.08, img, tracks([-90, -80, -10, -5], 5, False)).reasons
+
+
+def test_every_review_reason_has_plain_words():
+    """The terminal, --json, the report and the review page say each reason in words (one table,
+    redact.formats.review_json.REASON_WORDS); a reason without words would show as a code."""
+    from redact.formats.review_json import REASON_WORDS
+    from redact.redaction.quality import REASONS
+
+    assert set(REASONS) <= set(REASON_WORDS), sorted(set(REASONS) - set(REASON_WORDS))

@@ -28,7 +28,7 @@ from wsgiref.simple_server import WSGIRequestHandler, WSGIServer, make_server
 import bottle
 
 from redact.errors import RedactError
-from redact.redaction.quality import REASONS
+from redact.formats.review_json import in_words
 from redact.review.frames import FrameSource
 from redact.review.outputs import LoadedOutput, apply_review, latest, load_output, root_of
 from redact.review.state import STATUSES
@@ -40,17 +40,6 @@ CSP = ("default-src 'none'; script-src 'self'; style-src 'self'; img-src 'self';
        "base-uri 'none'; form-action 'none'; frame-ancestors 'none'")
 BODY_LIMIT = 4 * 1024 * 1024  # bytes of a POST body (common practice)
 
-REASON_WORDS = {
-    "dark": "dark picture", "low_contrast": "low contrast", "blurred": "blurred picture",
-    "low_confidence": "detector unsure of body points", "coasting": "person followed without detection",
-    "count_drop": "fewer people detected than just before", "fault": "frame failed and was fully obscured",
-    "kept_overlap": "a person left visible overlaps someone",
-    "dim": "much darker than this scene usually is",
-    "unexplained_motion": "movement no tracked person explains (obscured anyway)",
-    "camera_moved": "camera moved; the motion check is relearning the view",
-    "lighting_change": "the whole picture changed at once (light)",
-}
-assert set(REASON_WORDS) >= set(REASONS) - {"kept_overlap"}
 
 
 class _Quiet(WSGIRequestHandler):
@@ -107,7 +96,7 @@ class ReviewSession:
             "height": src.height, "source_name": src.name,
             "pts": self.redacted.pts, "time_base": str(self.info.time_base),
             "ranges": [{"start": r.start, "end": r.end, "reasons": list(r.reasons),
-                        "why": [REASON_WORDS.get(x, x.replace("_", " ")) for x in r.reasons]}
+                        "why": in_words(r.reasons)}
                        for r in self.state.ranges],
             "failed_frames": faults, "statuses": STATUSES, "review": self.state.page_doc(),
             "reviewed": o.predicate.human_review is not None, "job": self.job,
