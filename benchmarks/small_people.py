@@ -91,25 +91,34 @@ def model_alone(clip: Path, settings: ProcessSettings, sample: int = 100) -> flo
     return len(images) / (time.perf_counter() - t)
 
 
-def main() -> None:
-    ap = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
-    ap.add_argument("--seconds", type=float, default=12.0)
-    ap.add_argument("--sizes", nargs="+", default=["1024x576", "1280x720", "1920x1080"])
-    args = ap.parse_args()
+SIZES = ("1024x576", "1280x720", "1920x1080")
+
+
+def compare(sizes=SIZES, seconds: float = 12.0) -> None:
+    """Print the table of the module doc for each size "WxH"."""
     new = ProcessSettings()
     old = old_defaults(new)
+    print(f"small people, {seconds:g} s at 25 fps, frames/s and share of person-frames hidden:")
     print(f"{'size':>10} {'(a) new':>9} {'(a0) old':>9} {'(b) model':>10} {'a/a0':>6} {'a/b':>6}"
           f" {'hidden new':>11} {'hidden old':>11}")
     with tempfile.TemporaryDirectory() as d:
-        for size in args.sizes:
+        for size in sizes:
             w, h = (int(v) for v in size.split("x"))
             clip = Path(d) / f"small-{size}.mp4"
-            truths = syn.write_clip(scene(w, h, args.seconds), clip, crf=28)
+            truths = syn.write_clip(scene(w, h, seconds), clip, crf=28)
             a, cov_a = run(clip, truths, new, Path(d) / f"new-{size}")
             a0, cov_a0 = run(clip, truths, old, Path(d) / f"old-{size}")
             b = model_alone(clip, new)
             print(f"{size:>10} {a:9.1f} {a0:9.1f} {b:10.1f} {a / a0:6.2f} {a / b:6.2f} {cov_a:11.3f} {cov_a0:11.3f}",
                   flush=True)
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
+    ap.add_argument("--seconds", type=float, default=12.0)
+    ap.add_argument("--sizes", nargs="+", default=list(SIZES))
+    args = ap.parse_args()
+    compare(args.sizes, args.seconds)
 
 
 if __name__ == "__main__":

