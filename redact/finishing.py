@@ -165,11 +165,13 @@ class LookBack:
         self.seen: set[int] = set()
 
     def push(self, held: _Held, obscured: Tracks | None, frame_ids: Iterable[int],
-             arrivals: Iterable[ObscureRegion] = (), arrival_flag: str | None = None) -> list[_Held]:
+             arrivals: Iterable[ObscureRegion] = ()) -> list[_Held]:
         """obscured: the people obscured in this frame (None for a failed frame); frame_ids: every
         track id of the frame, including people kept visible (they are not new later); arrivals:
         regions of movement first seen in this frame (redact.redaction.unexplained), obscured in
-        the held-back frames as a new person is, which then carry arrival_flag for review."""
+        the held-back frames as a new person is. Only the frame where movement is found carries
+        its review flag: the frames before, where it is obscured in case it was already there,
+        would otherwise flag up to the whole look-back before anyone entered."""
         new = [k for k, i in enumerate(obscured.ids.tolist()) if i not in self.seen] if obscured is not None else []
         self.seen.update(int(i) for i in frame_ids)
         if new and obscured is not None:
@@ -191,8 +193,6 @@ class LookBack:
                     continue  # a person a plan keeps visible stays visible in the frames before
                 item.record = item.record.add(region, over=True)
                 self.stats.lookback_frames.append(item.frame.index)
-                if arrival_flag and arrival_flag not in item.flags:
-                    item.flags = item.flags + (arrival_flag,)
         self.pending.append(held)
         out = []
         while len(self.pending) > self.frames:
@@ -281,12 +281,10 @@ class MotionCover:
         if len(boxes):
             stats.motion_frames.append(record.frame)
             stats.motion_areas += len(found.boxes)
-        flag = None
         if found.flag.any():
             flags.append("unexplained_motion")
             stats.motion_flagged += 1
-            flag = "unexplained_motion"
-        return Produced(record, tuple(flags), tuple(arrivals), flag)
+        return Produced(record, tuple(flags), tuple(arrivals))
 
 
 @dataclass(frozen=True)
@@ -308,12 +306,11 @@ class FrameSinks:
 class Produced:
     """What a producer stage made of one frame: the record with its regions added, review flags
     for the frame, and regions new in this frame that the look-back also puts on the frames it
-    still holds (carrying lookback_flag there, when given)."""
+    still holds."""
 
     record: ObscureRecord
     flags: tuple[str, ...] = ()
     lookback: tuple[ObscureRegion, ...] = ()
-    lookback_flag: str | None = None
 
 
 #: A stage that adds to a frame's obscure record: (the tracked frame, its record so far) → Produced.
@@ -349,7 +346,6 @@ class FrameFinisher:
             tracks, record = None, ObscureRecord.failed(frame.index, w, h, error or "unknown")
         flags: tuple[str, ...] = ()
         arrivals: list[ObscureRegion] = []
-        arrival_flag: str | None = None
         for produce in self.producers:
             try:
                 made = produce(work, record)
@@ -361,18 +357,16 @@ class FrameFinisher:
                 record = made.record
                 flags += tuple(f for f in made.flags if f not in flags)
                 arrivals.extend(made.lookback)
-                arrival_flag = arrival_flag or made.lookback_flag
         obscured: Tracks | None = None
         frame_ids: list[int] = []
         if tracks is None:
-            flags, arrivals, arrival_flag = (), [], None
+            flags, arrivals = (), []
         else:
             obscured = tracks if decision is None else decision.obscure
             frame_ids = tracks.ids.tolist()
             if decision is not None and decision.overlap_ids:
                 flags = (KEPT_OVERLAP_FLAG,) + flags
-        for ready in self.lookback.push(_Held(frame, tracks, record, flags), obscured, frame_ids, arrivals,
-                                        arrival_flag):
+        for ready in self.lookback.push(_Held(frame, tracks, record, flags), obscured, frame_ids, arrivals):
             self._write(ready)
 
     def flush(self) -> None:

@@ -84,13 +84,16 @@ def test_a_blind_detector_still_hides_every_walker_by_motion_alone(tmp_path, sig
     seen = ~np.isnan(cov)
     assert seen.sum() > 100
     assert (cov[seen] >= 0.98).all(), np.argwhere(seen & (cov < 0.98))
-    # every frame with a walker is inside a range flagged for review, for movement nobody explains
+    # every frame with a walker is inside a range flagged for review, for movement nobody explains;
+    # but frame 0, where the motion net has nothing to compare with yet: the look-back obscures the
+    # walkers there (asserted above) without flagging it, and the range begins on frame 1
     flagged = set()
     for r in result.review:
         if "unexplained_motion" in r.reasons:
             flagged.update(range(r.frame_start, r.frame_end + 1))
     on_screen = {t.frame for t in truths if t.visible.any()}
-    assert on_screen - flagged == set()
+    assert on_screen - flagged <= {0}
+    assert 1 in flagged
     # and the video agrees: no person rectangle shows the source on more than a sliver of it
     with VideoReader(path) as src, VideoReader(result.video) as red:
         for (fs, fr), truth in zip(zip(src.frames(), red.frames()), truths):

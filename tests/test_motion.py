@@ -91,3 +91,19 @@ def test_whole_frame_light_change_is_a_state_not_blobs():
 def test_settings_are_checked(kw):
     with pytest.raises(InputError):
         MotionSettings(**kw)
+
+
+def test_large_walkers_over_a_still_view_are_not_a_moving_camera():
+    """Phase correlation locks onto whatever dominates the picture; walkers a third of the frame
+    tall must not read as the camera moving (which would restart learning and flag every frame)."""
+    actors = []
+    for k in range(3):  # already walking when the clip starts, each from its own side
+        a, b = (-32.0, 672.0) if k % 2 == 0 else (672.0, -32.0)
+        y, h = 180.0 + 47 * k, 110.0 + 20 * k
+        actors.append(syn.Actor(("astronaut", "camera")[k % 2], ((-1.0 - k, a, y, h), (5.0 + k, b, y, h)),
+                                mirror=k % 2 == 1))
+    spec = syn.SceneSpec(640, 360, Fraction(FPS), 4.0, tuple(actors), background="hall", noise=2.0, blur=0.8)
+    det = MotionDetector(MotionSettings(), FPS)
+    states = [det.observe(img).state for img, _ in syn.render_scene(spec)]
+    assert "camera_moved" not in states
+    assert states[FPS * 2:] == ["ok"] * (spec.frames - FPS * 2)

@@ -77,8 +77,9 @@ def test_records_come_one_per_frame_in_order_with_every_reason(recorded):
     clip, _, result, records, _ = recorded
     assert [r.frame for r in records] == list(range(result.frames)) and result.frames == 50
     kinds = {w.kind for r in records for reg in r.regions for w in reg.reasons}
-    # "motion": the motion net obscures what moves outside every person's region (redact.finishing.MotionCover)
-    assert kinds == {"person", "lookback", "plan", "fault", "motion"}
+    # "motion" only where something moves outside every person's region (redact.finishing.MotionCover;
+    # tests/test_hidden_people.py has a clip where only the motion net finds anyone)
+    assert {"person", "lookback", "plan", "fault"} <= kinds <= {"person", "lookback", "plan", "fault", "motion"}
     assert {r.frame for r in records if r.fault} == FAULTS
     assert all(r.fault == "RuntimeError" for r in records if r.frame in FAULTS)
     plan_whole = [r.frame for r in records if r.whole_frame and not r.fault]

@@ -73,8 +73,8 @@ def _tracks(n_observed: int, n_predicted: int = 0, conf: float = 0.9) -> Tracks:
     m = n_observed + n_predicted
     kp = np.zeros((m, 17, 3), np.float32)
     kp[:, :, 2] = conf
-    return Tracks(np.arange(m), np.tile(np.array([[10, 10, 50, 90]], np.float32), (m, 1)), np.full(m, 0.9), kp,
-                  np.arange(m) < n_observed, np.zeros(m, np.int32))
+    boxes = np.array([[10 + 60 * k, 10, 50 + 60 * k, 90] for k in range(m)], np.float32).reshape(m, 4)  # apart
+    return Tracks(np.arange(m), boxes, np.full(m, 0.9), kp, np.arange(m) < n_observed, np.zeros(m, np.int32))
 
 
 def _textured(level: float, seed: int) -> np.ndarray:
@@ -206,3 +206,23 @@ def test_every_review_reason_has_plain_words():
     from redact.redaction.quality import REASONS
 
     assert set(REASONS) <= set(REASON_WORDS), sorted(set(REASONS) - set(REASON_WORDS))
+
+
+def test_a_coasting_box_inside_an_observed_person_is_explained_by_them():
+    """A duplicate box of someone tracked, or a person hidden behind them (and obscured with
+    them), does not flag coasting or a count drop; a coasting box on its own does."""
+    img = np.full((100, 200, 3), 120, np.uint8)
+    img[::2] = 160  # some texture, so the image rules stay quiet
+
+    def tracks(boxes, observed):
+        n = len(boxes)
+        kp = np.zeros((n, 17, 3), np.float32)
+        kp[:, :, 2] = 0.9
+        return Tracks(np.arange(n), np.array(boxes, np.float32), np.full(n, 0.9), kp,
+                      np.array(observed), np.zeros(n, np.int32), None, np.full(n, 12, np.int32))
+
+    m = QualityMonitor()
+    assert m.observe(0, 0.0, img, tracks([[10, 10, 60, 90], [14, 12, 58, 88]], [True, True])).reasons == ()
+    assert m.observe(1, 0.04, img, tracks([[10, 10, 60, 90], [14, 12, 58, 88]], [True, False])).reasons == ()
+    assert m.observe(2, 0.08, img, tracks([[10, 10, 60, 90], [120, 12, 160, 88]], [True, False])).reasons == (
+        "coasting", "count_drop")

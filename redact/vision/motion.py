@@ -110,6 +110,19 @@ def analysis_grey(image: np.ndarray, width: int) -> tuple[np.ndarray, float]:
     return cv2.resize(grey, (aw, ah), interpolation=cv2.INTER_AREA), w / aw
 
 
+#: A shift must account for at least this share of the frame differing from the background (and
+#: undoing it must halve that) before it is taken as the camera's own (common practice).
+SHIFT_EVIDENCE = 0.005
+#: Grey levels (0..255) by which a lightly blurred pixel must differ to count as different in
+#: that test (common practice; H.264 and sensor noise stay below it).
+DIFFERENCE_LEVEL = 12
+
+
+def _differs(a: np.ndarray, b: np.ndarray) -> float:
+    """Share of pixels of two grey images that differ by more than DIFFERENCE_LEVEL."""
+    return float((cv2.absdiff(a, b) > DIFFERENCE_LEVEL).mean()) if a.size else 0.0
+
+
 _KERNEL = cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (3, 3))
 #: Joins the pieces of one walker (head, moving arms, legs) that subtraction finds apart; taller
 #: than wide because people are (common practice).
@@ -134,16 +147,39 @@ class MotionDetector:
                                                         detectShadows=False)
         self._learned = 0
 
-    def _shift(self, grey: np.ndarray) -> tuple[float, float]:
-        """Translation of this frame against the learned background, in analysis pixels."""
+    def _background(self, grey: np.ndarray) -> np.ndarray | None:
+        """The learned empty scene, grey, at analysis scale (None before there is one)."""
         assert self._model is not None
         background = self._model.getBackgroundImage()
-        if background is None or background.shape != grey.shape:
+        if background is None or background.shape[:2] != grey.shape:
+            return None
+        return cv2.cvtColor(background, cv2.COLOR_BGR2GRAY) if background.ndim == 3 else background
+
+    def _camera_shift(self, grey: np.ndarray) -> tuple[float, float]:
+        """Translation (analysis pixels) of the camera since the background was learned, or (0, 0).
+
+        Phase correlation (cv2.phaseCorrelate) gives the dominant translation, which may be that
+        of a large walker rather than of the camera. A shift is believed only when it explains the
+        frame: undoing it must remove at least half of the pixels that differ from the background,
+        and those must be a fair share of the frame (SHIFT_EVIDENCE), as when the whole view
+        slides; people walking over a still view fail this and the camera is taken as still."""
+        background = self._background(grey)
+        if background is None:
             return 0.0, 0.0
-        if background.ndim == 3:
-            background = cv2.cvtColor(background, cv2.COLOR_BGR2GRAY)
         window = cv2.createHanningWindow(grey.shape[::-1], cv2.CV_32F)
         (dx, dy), _ = cv2.phaseCorrelate(background.astype(np.float32), grey.astype(np.float32), window)
+        if math.hypot(dx, dy) < 0.25:
+            return 0.0, 0.0
+        bx, by = int(math.ceil(abs(dx))) + 1, int(math.ceil(abs(dy))) + 1
+        if 2 * bx >= grey.shape[1] or 2 * by >= grey.shape[0]:
+            return float(dx), float(dy)  # slid by half the view or more: nothing left to compare
+        m = np.float32([[1, 0, -dx], [0, 1, -dy]])
+        undone = cv2.warpAffine(grey, m, grey.shape[::-1], borderMode=cv2.BORDER_REPLICATE)
+        inner = (slice(by, -by), slice(bx, -bx))
+        before = _differs(grey[inner], background[inner])
+        after = _differs(undone[inner], background[inner])
+        if before < SHIFT_EVIDENCE or after > 0.5 * before:
+            return 0.0, 0.0
         return float(dx), float(dy)
 
     def observe(self, image: np.ndarray) -> Foreground:
@@ -164,7 +200,7 @@ class MotionDetector:
         state = "ok"
         rate = -1.0  # MOG2's own rate, 1/history once warmed up
         if self._learned >= 2:
-            shift = self._shift(grey)
+            shift = self._camera_shift(grey)
             limit = s.shake * grey.shape[1]
             if math.hypot(*shift) > limit:
                 self._restart()
