@@ -292,7 +292,9 @@ def test_cli_reports_people_in_an_unredacted_clip(clip):
     doc = json.loads(res.stdout)
     assert doc["passed"] is False
     assert doc["frames_scanned"] == 5 and doc["frames_decoded"] == 25
-    assert doc["faces"] >= 6 and doc["persons"] >= 6  # two people in most scanned frames
+    # two people in most scanned frames; at one scanned frame in five a face may be seen once only
+    # (entering at an edge) and scored below face_sure_score: listed as a single sighting
+    assert doc["faces"] + doc["faces_single"] >= 6 and doc["faces"] >= 4 and doc["persons"] >= 6
     assert doc["ranges"] and doc["ranges"][0]["frames"][0] <= 5
     # the one shape of a flagged range (redact.redaction.reasons.range_record), reasons in plain words
     r = doc["ranges"][0]
@@ -362,3 +364,25 @@ def test_help_carries_the_caution():
     flat = " ".join(res.output.split())
     assert "does not prove that nobody can be identified" in flat
     assert "does not replace it" in flat
+
+
+def test_a_low_scored_face_seen_in_one_scanned_frame_only_is_listed_not_counted():
+    """single_sightings: a face scored below face_sure_score with nothing overlapping it in the
+    scanned frames before and after (nor in the source's frame) moves to faces_single; the same
+    face in two scanned frames, a face scored at or above face_sure_score, and a face the source
+    shows there all count."""
+    s = A.AuditSettings()
+    box, moved, elsewhere = (10.0, 10.0, 40.0, 40.0), (12.0, 11.0, 42.0, 41.0), (200.0, 10.0, 230.0, 40.0)
+
+    def frames(*faces_per_frame, source=None):
+        return [A.FrameAudit(i, i / 25, faces=tuple(f), persons=(), source_faces=source)
+                for i, f in enumerate(faces_per_frame)]
+
+    alone = A.single_sightings(frames([], [(box, 0.61)], [(elsewhere, 0.9)]), s)
+    assert alone[1].faces == () and alone[1].faces_single == ((box, 0.61),)
+    assert alone[2].faces == ((elsewhere, 0.9),)  # sure enough on its own
+    again = A.single_sightings(frames([(box, 0.61)], [(moved, 0.62)]), s)
+    assert [len(f.faces) for f in again] == [1, 1] and not any(f.faces_single for f in again)
+    in_source = A.single_sightings(frames([(box, 0.61)], source=((moved, 0.9),)), s)
+    assert in_source[0].faces == ((box, 0.61),)
+    assert alone[1].as_dict()["faces_single"] == [{"box": [10.0, 10.0, 40.0, 40.0], "score": 0.61}]

@@ -42,6 +42,9 @@ def _print_report(report) -> None:
     if report.persons_on_fill or report.faces_on_fill:
         click.echo(f"seen on the redaction's own fill and stick figures (not counted): "
                    f"{report.persons_on_fill} person(s), {report.faces_on_fill} face(s)")
+    if report.faces_single:
+        click.echo(f"faces seen in one scanned frame only, scored below {report.settings['face_sure_score']} "
+                   f"(listed, not counted; check them): {report.faces_single}")
     if report.source is not None:
         click.echo(f"source: {report.source_faces} face(s) found in {report.source}; "
                    f"{report.survived} survived in the redacted video")

@@ -45,6 +45,17 @@ on a blurred copy the pose model may still find people (it did, scores 0.25-0.41
 redaction of the 640×360 clip): the audit reports them, since a silhouette with clothing colours
 and gait can identify someone.
 
+A face is a person's for more than a moment: a face found in one scanned frame only (nothing
+overlapping it, IoU > 0.3, in the scanned frame before or after) and scored below
+`face_sure_score` (0.8) is listed as a single sighting, not counted. The face detector does
+imagine faces in scene texture: on a correctly redacted 640×360 crossing clip it found one, scored
+0.61, on a plain wall between two of our grey regions, whose two notice boards made the eyes, in
+the last frame only. Real faces in the unredacted test clips and the demo score from 0.607 and
+are found again in the next scanned frame (every 5th frame in tests/test_audit_clean.py). The
+cost: a face left visible in a single frame, or in a clip scanned so sparsely that it is seen
+once, and scored below 0.8, is listed (the terminal and `--json` show it) but does not fail the
+audit; the human review before disclosure has to catch it.
+
 With the source video, the same detectors run on it frame by frame (aligned by index), and each
 source face is checked for a redacted-video face overlapping it (IoU > 0.3) in the same frame:
 such a face "survived" the redaction.
@@ -59,7 +70,7 @@ from __future__ import annotations
 import contextlib
 import itertools
 from collections.abc import Callable
-from dataclasses import asdict, dataclass
+from dataclasses import asdict, dataclass, replace
 from pathlib import Path
 
 import numpy as np
@@ -99,6 +110,9 @@ class AuditSettings:
     step: scan every step-th frame (1 = every frame). min_faces / min_persons: the audit fails
     when at least this many faces / persons are found over the whole video (1 = any at all).
     survive_iou: IoU above which a redacted-video face matches a source face in the same frame.
+    face_sure_score: a face scored at least this counts even when seen in one scanned frame only;
+    below it, a face counts when one overlapping it (IoU > survive_iou) is found in the scanned
+    frame before or after (see the module doc).
     threads: onnxruntime threads (None = every core); speed only.
     """
 
@@ -121,6 +135,7 @@ class AuditSettings:
     min_faces: int = 1
     min_persons: int = 1
     survive_iou: float = 0.3
+    face_sure_score: float = 0.8
     threads: int | None = None
 
     def __post_init__(self) -> None:
@@ -134,7 +149,7 @@ class AuditSettings:
             if not 0.0 <= getattr(self, name) < 1.0:
                 raise InputError(f"{name.replace('_', ' ')} must be in [0, 1), got {getattr(self, name)}")
         for name in ("face_merge_iou", "face_merge_containment", "head_confidence", "fill_fraction",
-                     "dense_fill_fraction", "drawing_fraction", "survive_iou"):
+                     "dense_fill_fraction", "drawing_fraction", "survive_iou", "face_sure_score"):
             if not 0.0 < getattr(self, name) <= 1.0:
                 raise InputError(f"{name.replace('_', ' ')} must be in (0, 1], got {getattr(self, name)}")
         if not 0.0 < self.pose_score < 1.0:
@@ -162,7 +177,9 @@ class FrameAudit:
 
     faces: faces in the audited video on real pixels (these count). persons: people the pose
     model found on real pixels (these count). on_fill / faces_on_fill: people and faces found on
-    the redaction's own fill and figures (reported, not counted). source_faces: faces in the
+    the redaction's own fill and figures (reported, not counted). faces_single: faces on real
+    pixels seen in this scanned frame only and scored below face_sure_score (reported, not
+    counted; see the module doc). source_faces: faces in the
     source's frame of the same index (None without a source); survived: indices into
     source_faces matched by a face here.
     """
@@ -175,6 +192,7 @@ class FrameAudit:
     source_faces: tuple[Detection, ...] | None = None
     survived: tuple[int, ...] = ()
     faces_on_fill: tuple[Detection, ...] = ()
+    faces_single: tuple[Detection, ...] = ()
 
     @property
     def has_findings(self) -> bool:
@@ -191,7 +209,8 @@ class FrameAudit:
             return [{"box": [round(v, 1) for v in b], "score": round(s, 4)} for b, s in items]
 
         d = {"frame": self.frame, "t": round(self.t, 6), "faces": dets(self.faces), "persons": dets(self.persons),
-             "persons_on_fill": dets(self.on_fill), "faces_on_fill": dets(self.faces_on_fill)}
+             "persons_on_fill": dets(self.on_fill), "faces_on_fill": dets(self.faces_on_fill),
+             "faces_single": dets(self.faces_single)}
         if self.source_faces is not None:
             d["source_faces"] = dets(self.source_faces)
             d["survived"] = list(self.survived)
@@ -235,6 +254,10 @@ class AuditReport:
     def faces_on_fill(self) -> int:
         return sum(len(f.faces_on_fill) for f in self.frames)
 
+    @property
+    def faces_single(self) -> int:
+        return sum(len(f.faces_single) for f in self.frames)
+
     def range_records(self) -> list[dict]:
         """The ranges in the shape every command uses (redact.formats.review_json.range_record)."""
         from redact.formats.review_json import range_record
@@ -248,7 +271,8 @@ class AuditReport:
         doc = audit_summary(self)
         doc["video"], doc["source"] = self.video, self.source
         doc["frames"] = [f.as_dict() for f in self.frames
-                         if f.faces or f.persons or f.on_fill or f.faces_on_fill or f.source_faces]
+                         if f.faces or f.persons or f.on_fill or f.faces_on_fill or f.faces_single
+                         or f.source_faces]
         return doc
 
 
@@ -266,6 +290,7 @@ def audit_summary(report: AuditReport) -> dict:
         "persons": report.persons,
         "persons_on_fill": report.persons_on_fill,
         "faces_on_fill": report.faces_on_fill,
+        "faces_single": report.faces_single,
         "ranges": report.range_records(),
         "source_faces": report.source_faces,
         "survived": report.survived,
@@ -508,6 +533,23 @@ def _check_pair(video: Path, source: Path):
     return vi, si
 
 
+def single_sightings(records: list[FrameAudit], settings: AuditSettings) -> tuple[FrameAudit, ...]:
+    """The frame records with each face that is seen in its scanned frame only (no face
+    overlapping it in the scanned frame before or after, on real pixels or not, nor in the
+    source's frame when there is one) and scored below settings.face_sure_score moved from
+    `faces` to `faces_single`."""
+    out = []
+    for i, rec in enumerate(records):
+        near = [f for j in (i - 1, i + 1) if 0 <= j < len(records)
+                for f in records[j].faces + records[j].faces_single + records[j].faces_on_fill]
+        kept, single = [], []
+        for box, score in rec.faces:
+            seen_again = any(iou(box, other) > settings.survive_iou for other, _ in near + list(rec.source_faces or ()))
+            (kept if score >= settings.face_sure_score or seen_again else single).append((box, score))
+        out.append(replace(rec, faces=tuple(kept), faces_single=tuple(single)) if single else rec)
+    return tuple(out)
+
+
 def audit_video(redacted: str | Path, source: str | Path | None = None, settings: AuditSettings = AuditSettings(),
                 progress: Callable[[int, int], None] | None = None) -> AuditReport:
     """Scan `redacted` (every settings.step-th frame) for faces and persons; see the module doc.
@@ -550,7 +592,7 @@ def audit_video(redacted: str | Path, source: str | Path | None = None, settings
         if sreader is not None and sreader.stopped_early and not stopped:
             stopped = f"source: {sreader.stopped_early}"
 
-    frames = tuple(records)
+    frames = single_sightings(records, settings)
     resolved = {**settings.record(), "face_score": det.face_score}
     n_faces = sum(len(f.faces) for f in frames)
     n_persons = sum(len(f.persons) for f in frames)
