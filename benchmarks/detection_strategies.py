@@ -404,7 +404,7 @@ def report(scene: str, strategies: list[Strategy], tallies: dict, note: str) -> 
         if isinstance(s, Motion) and s.frames:
             print(f"  {s.name} ({'int8' if s.model == DEFAULT_POSE_MODEL else 'fp32'}"
                   f"{', CLAHE' if s.clahe else ''}): motion step {s.motion_ms / s.frames:.1f} ms/frame "
-                  f"(MOG2 at 320 px wide, blobs, crops; on every frame)")
+                  f"(MOG2 at {s.width} px wide or less, blobs, crops; on every frame)")
 
 
 def main() -> None:
