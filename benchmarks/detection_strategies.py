@@ -12,7 +12,7 @@ recall_common.py; reference people = float32 model at a 1280 long side, score �
   1280×720 canvas whose remainder is the empty scene (per-pixel temporal median of frames 0–399,
   scaled the same) continued by mirror reflection at its edges, so the surround is static street
   texture with no people; sensor noise (sigma 2 grey levels) over the whole canvas, then H.264
-  (libx264, CRF 23, preset veryfast) through redact.video, decoded back: a wide static view with
+  (libx264, CRF 23, preset veryfast) through redact.media.video, decoded back: a wide static view with
   the activity in one part, as a fixed camera sees it.
 - 1080p: the same at scale 0.6 (people about 37–73 px) in 1920×1080.
 - dim30 / dim47: native frames multiplied by 0.3, and by the factor that brings their mean BT.601
@@ -21,9 +21,9 @@ recall_common.py; reference people = float32 model at a 1280 long side, score �
   clip 2, 8×8 tiles, common practice) applied to the detector input only (the motion detector
   sees the dim frame).
 
-Strategies (default settings of redact.pose unless stated: score ≥ 0.25, NMS IoU 0.6,
+Strategies (default settings of redact.vision.pose unless stated: score ≥ 0.25, NMS IoU 0.6,
 containment 0.85; results of several model calls are mapped back to frame pixels and merged with
-redact.pose.nms with the same IoU and containment):
+redact.vision.pose.nms with the same IoU and containment):
 - full@L: the whole frame at a long side of L (640 is today's default).
 - tiles@T ov O: overlapping square tiles covering the frame, each enlarged to T×T model pixels
   so that a person of the scene's minimum height (h_min, given per scene; an installation would
@@ -79,10 +79,10 @@ import numpy as np
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 import recall_common as rc  # noqa: E402
 
-from redact.models import DEFAULT_POSE_MODEL, FLOAT_POSE_MODEL, get_model, open_session  # noqa: E402
-from redact.pose import STRIDE, PoseEstimator, PoseSettings, decode, input_size_for, nms  # noqa: E402
-from redact.quality import luma  # noqa: E402
-from redact.video import VideoReader, VideoWriter  # noqa: E402
+from redact.media.video import VideoReader, VideoWriter  # noqa: E402
+from redact.redaction.quality import luma  # noqa: E402
+from redact.vision.models import DEFAULT_POSE_MODEL, FLOAT_POSE_MODEL, get_model, open_session  # noqa: E402
+from redact.vision.pose import STRIDE, PoseEstimator, PoseSettings, decode, input_size_for, nms  # noqa: E402
 
 BANDS = (35, 45, 55, 65, 75, 90, 110, 130)
 MAX_CROP_SIDE = 1280
@@ -307,7 +307,8 @@ def noisy_dim_frames(native: dict[int, np.ndarray], factor: float, tmp: Path):
     rng = np.random.default_rng(11)
     with VideoWriter(path, w, h, Fraction(1, 10), Fraction(10), crf=28, threads=1) as wr:
         for i in range(rc.VTEST_FRAMES):
-            x = native[i].astype(np.float32) * np.float32(factor) + rng.normal(0, 3.0, native[i].shape).astype(np.float32)
+            noise = rng.normal(0, 3.0, native[i].shape).astype(np.float32)
+            x = native[i].astype(np.float32) * np.float32(factor) + noise
             wr.write(np.clip(np.rint(x), 0, 255).astype(np.uint8), i)
     with VideoReader(path, hash_file=False, threads=1) as r:
         for f in r.frames():
@@ -377,7 +378,8 @@ def report(scene: str, strategies: list[Strategy], tallies: dict, note: str) -> 
     bands = [(a, b) for a, b in zip(edges, edges[1:]) if ((all_h >= a) & (all_h < b)).any()]
     hdr = (f"{'strategy':<26} {'model':<5} {'cl':<2} {'frm':>4} {'recall':>6} " +
            " ".join(f"{f'{a}-{b}' if b < 10_000 else f'{a}+':>7}" for a, b in bands) +
-           f" {'false/100f wk/pt/bg':>20} {'calls':>5} {'kpx':>6} {'ms 1t':>7} {'ms 2t':>7} {'x640 1t':>7} {'x640 2t':>7}")
+           f" {'false/100f wk/pt/bg':>20} {'calls':>5} {'kpx':>6} {'ms 1t':>7} {'ms 2t':>7}"
+           f" {'x640 1t':>7} {'x640 2t':>7}")
     print(hdr)
     base = {}
     for s in strategies:
@@ -490,7 +492,8 @@ def main() -> None:
         st = dict(strides, **{s.name: max(args.tile_stride, args.stride) for s in strategies if isinstance(s, Tiles)})
         tal = evaluate("native", native_iter(), refs, strategies, st, timing, sessions,
                            repeats=args.timing_repeats, timing_only=args.timing_only)
-        report("native 768x576", strategies, tal, f"h_min {h_min_native:.0f} px, tile/crop gain {g:.2f}, target {T:.0f} px")
+        report("native 768x576", strategies, tal,
+               f"h_min {h_min_native:.0f} px, tile/crop gain {g:.2f}, target {T:.0f} px")
 
     with tempfile.TemporaryDirectory(prefix="redact-bench-") as tmpd:
         for scene, scale, size in (("720p", 0.65, (1280, 720)), ("1080p", 0.6, (1920, 1080))):

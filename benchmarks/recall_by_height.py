@@ -17,7 +17,7 @@ How:
 - context: the same vtest people at ×1.25 (clean) given to the model as the whole frame, as a
   square window of 256–640 px centred on each person, and as the 640 window on a larger grey
   canvas: recall at a given height depends on what else fills the input.
-- scikit-image stills, cut out by redact.synthetic and pasted at known heights (15–360 px) on a
+- scikit-image stills, cut out by redact.media.synthetic and pasted at known heights (15–360 px) on a
   640×480 frame over a generated hall and over the empty vtest scene (temporal median), degraded
   the same way: `astronaut()` (public domain, NASA) and `camera()` (CC0 1.0, Lav Varshney), both
   loaded from the installed scikit-image. Their truth is the pasted rectangle (upper bodies).
@@ -45,9 +45,9 @@ import numpy as np
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 import recall_common as rc  # noqa: E402
 
-from redact.models import DEFAULT_POSE_MODEL, FLOAT_POSE_MODEL, get_model, open_session  # noqa: E402
-from redact.pose import PAD_VALUE, STRIDE, PoseEstimator, PoseSettings, decode  # noqa: E402
-from redact.synthetic import Actor, SceneSpec, render_background, render_frame  # noqa: E402
+from redact.media.synthetic import Actor, SceneSpec, render_background, render_frame  # noqa: E402
+from redact.vision.models import DEFAULT_POSE_MODEL, FLOAT_POSE_MODEL, get_model, open_session  # noqa: E402
+from redact.vision.pose import PAD_VALUE, STRIDE, PoseEstimator, PoseSettings, decode  # noqa: E402
 
 EDGES = (15, 20, 25, 30, 35, 40, 45, 50, 60, 70, 80, 90, 100, 115, 130, 145, 160, 200, 250, 300, 400)
 SCALES = (0.2, 0.25, 0.3, 0.35, 0.4, 0.45, 0.5, 0.6, 0.7, 0.85, 1.0, 1.25, 1.5, 1.75, 2.0, 2.5, 3.0)
@@ -188,7 +188,8 @@ def stills_part(runner: Runner, plate: np.ndarray | None, all_levels: bool, per_
                     cy = (c // ncol + 0.5) * (H / nrow) + rng.uniform(-0.05, 0.05) * ch
                     dx = 0.03 * hp * (1 if a % 2 else -1)
                     still = ("astronaut", "camera")[(a + k) % 2]
-                    actors.append(Actor(still, ((0.0, cx - 2 * dx, cy, hp), (0.2, cx, cy, hp)), mirror=bool((a + k + hi) % 3 == 0)))
+                    path = ((0.0, cx - 2 * dx, cy, hp), (0.2, cx, cy, hp))
+                    actors.append(Actor(still, path, mirror=bool((a + k + hi) % 3 == 0)))
                 spec = SceneSpec(W, H, 10, 0.3, tuple(actors), seed=k)
                 run, truth = [], None
                 for i in range(3):
@@ -212,7 +213,8 @@ def table(rows, label: str) -> dict[str, tuple[float | None, float | None]]:
             sel = [f for (_, _, h, f) in rows[m] if lo <= h < hi]
             n, k = len(sel), int(sum(sel))
             per[m].append((lo, n, k))
-            line += (f" | {n:>5} {k / n:>7.3f} {rc.wilson_low(k, n):>7.3f} {n - k:>5}" if n else f" | {'-':>5} {'':>7} {'':>7} {'':>5}")
+            line += (f" | {n:>5} {k / n:>7.3f} {rc.wilson_low(k, n):>7.3f} {n - k:>5}" if n
+                     else f" | {'-':>5} {'':>7} {'':>7} {'':>5}")
         print(line)
     out = {}
     for m in MODELS:
@@ -263,7 +265,7 @@ def level_table(rows, label: str) -> None:
         for lev in rc.LEVELS:
             line = f"{m:<18} {lev.name:<9}"
             for a, b in bands:
-                sel = [f for (_, l, h, f) in rows[m] if l == lev.name and a <= h < b]
+                sel = [f for (_, level, h, f) in rows[m] if level == lev.name and a <= h < b]
                 line += f" {np.mean(sel):>5.3f}/{len(sel):<5}" if sel else f" {'-':>11}"
             print(line)
 

@@ -25,9 +25,9 @@ from pathlib import Path
 import cv2
 import numpy as np
 
-from redact.models import FLOAT_POSE_MODEL
-from redact.pose import PoseEstimator, PoseSettings
-from redact.video import VideoReader, VideoWriter
+from redact.media.video import VideoReader, VideoWriter
+from redact.vision.models import FLOAT_POSE_MODEL
+from redact.vision.pose import PoseEstimator, PoseSettings
 
 VTEST = Path("/usr/share/doc/opencv-doc/examples/data/vtest.avi")
 VTEST_LICENCE = "Apache-2.0 AND BSD-3-Clause (Debian opencv-doc, /usr/share/doc/opencv-doc/copyright)"
@@ -45,7 +45,7 @@ def vtest_missing_message() -> str:
 
 
 def read_vtest(indices) -> dict[int, np.ndarray]:
-    """RGB frames of vtest.avi with the given indices (all < 400), decoded by redact.video."""
+    """RGB frames of vtest.avi with the given indices (all < 400), decoded by redact.media.video."""
     want = set(int(i) for i in indices)
     if not want:
         return {}
@@ -68,7 +68,7 @@ class Reference:
     people: np.ndarray  # [N, 4] x1 y1 x2 y2
     weak: np.ndarray    # [M, 4]
 
-    def scaled(self, s: float, dx: float = 0.0, dy: float = 0.0) -> "Reference":
+    def scaled(self, s: float, dx: float = 0.0, dy: float = 0.0) -> Reference:
         off = np.array([dx, dy, dx, dy], np.float64)
         return Reference(self.people * s + off, self.weak * s + off)
 
@@ -166,7 +166,7 @@ def _overlap_own(a: np.ndarray, b: np.ndarray) -> np.ndarray:
 @dataclass(frozen=True)
 class Degradation:
     """Optics blur (Gaussian sigma, px), sensor noise (Gaussian sigma, grey levels, per channel),
-    then H.264 (libx264 through PyAV, redact.video.VideoWriter, preset veryfast) at a CRF; crf None
+    then H.264 (libx264 through PyAV, redact.media.video.VideoWriter, preset veryfast) at a CRF; crf None
     = not re-encoded. Values are common practice for CCTV-like footage, not measured on a camera."""
 
     name: str
