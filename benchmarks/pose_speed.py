@@ -10,6 +10,7 @@ from __future__ import annotations
 import argparse
 import statistics
 import time
+from functools import partial
 
 import numpy as np
 
@@ -47,9 +48,9 @@ def main() -> None:
                 image = rng.integers(0, 255, (h, w, 3), dtype=np.uint8)
                 tensor, lb = est.preprocess(image)
                 raw = est.infer(tensor)
-                pre = _median_ms(lambda: est.preprocess(image), args.repeats)
-                model = _median_ms(lambda: est.infer(tensor), args.repeats)
-                post = _median_ms(lambda: decode(raw, lb, est.settings), args.repeats)
+                pre = _median_ms(partial(est.preprocess, image), args.repeats)
+                model = _median_ms(partial(est.infer, tensor), args.repeats)
+                post = _median_ms(partial(decode, raw, lb, est.settings), args.repeats)
                 print(f"{entry.id:<18} {label:<24} {threads:>7} {pre:>7.1f} {model:>8.1f} {post:>7.1f} "
                       f"{pre + model + post:>8.1f}")
 

@@ -108,7 +108,7 @@ def test_coco_results_load_with_pycocotools(package, tmp_path):
     # Scored against a ground truth made of the same poses, COCOeval finds a perfect match (AP = 1).
     full = json.loads(gt_path.read_text())
     full["annotations"] = []
-    for n, ((f, tid), (kp, _, _)) in enumerate(sorted(truth.items()), 1):
+    for n, ((f, _tid), (kp, _, _)) in enumerate(sorted(truth.items()), 1):
         x0, y0 = kp[:, :2].min(0)
         x1, y1 = kp[:, :2].max(0)
         full["annotations"].append({

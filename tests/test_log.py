@@ -49,7 +49,8 @@ def test_lines_chain_by_sha256_of_exact_previous_bytes(tmp_path):
 
 
 def test_deterministic_with_a_fixed_clock(tmp_path):
-    make(tmp_path, "a.jsonl"); make(tmp_path, "b.jsonl")
+    make(tmp_path, "a.jsonl")
+    make(tmp_path, "b.jsonl")
     assert (tmp_path / "a.jsonl").read_bytes() == (tmp_path / "b.jsonl").read_bytes()
 
 

@@ -69,7 +69,8 @@ def test_published_proof_rejected_when_altered():
     assert not merkle.verify_inclusion(LEAVES[0], 0, 8, proof[:2], root)  # short path
     assert not merkle.verify_inclusion(LEAVES[0], 0, 8, proof + proof[:1], root)  # long path
     assert not merkle.verify_inclusion(LEAVES[0], 8, 8, proof, root)      # index outside
-    bad = bytearray(proof[1]); bad[0] ^= 1
+    bad = bytearray(proof[1])
+    bad[0] ^= 1
     assert not merkle.verify_inclusion(LEAVES[0], 0, 8, [proof[0], bytes(bad), proof[2]], root)
 
 

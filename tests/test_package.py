@@ -154,7 +154,8 @@ def test_tar_layout(tmp_path, signer):
 
 def test_writer_refuses(tmp_path, signer):
     p = build_package(tmp_path, signer)
-    staging = tmp_path / "s"; staging.mkdir()
+    staging = tmp_path / "s"
+    staging.mkdir()
     (staging / "a.json").write_bytes(b"{}")
     with pytest.raises(OutputError, match="already exists"):
         package.write_package(staging, p["path"], test_predicate(), signer)
@@ -194,7 +195,9 @@ def tar_with(path: Path, members: list[tuple[tarfile.TarInfo, bytes]]) -> Path:
 
 
 def info(name, type_=tarfile.REGTYPE, linkname=""):
-    i = tarfile.TarInfo(name); i.type = type_; i.linkname = linkname
+    i = tarfile.TarInfo(name)
+    i.type = type_
+    i.linkname = linkname
     return i
 
 
@@ -229,12 +232,14 @@ def test_tar_reader_flags_duplicates_and_garbage(tmp_path):
 
 
 def test_directory_reader_flags_links_and_specials(tmp_path):
-    d = tmp_path / "pkg"; d.mkdir()
+    d = tmp_path / "pkg"
+    d.mkdir()
     (d / "a.json").write_bytes(b"{}")
     os.symlink("a.json", d / "alias.json")
     os.mkfifo(d / "pipe")
     (d / "empty").mkdir()
-    (d / "sub").mkdir(); (d / "sub" / "b.json").write_bytes(b"[]")
+    (d / "sub").mkdir()
+    (d / "sub" / "b.json").write_bytes(b"[]")
     with package.open_package(d) as r:
         assert r.files == {"a.json": 2, "sub/b.json": 2}
         assert any("alias.json: symlink" in p for p in r.problems)

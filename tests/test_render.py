@@ -209,8 +209,11 @@ def test_blur_strength_scales_with_region_size(scene):
     weak = Blur(fraction=0.01, min_sigma=1.0).apply(img, mask)
     strong = Blur().apply(img, mask)
     reg = (slice(120, 280), slice(120, 280))
+
     # variance of the Laplacian falls as blur grows (common practice measure of detail)
-    lap = lambda a: cv2.Laplacian(cv2.cvtColor(a, cv2.COLOR_RGB2GRAY), cv2.CV_64F).var()
+    def lap(a):
+        return cv2.Laplacian(cv2.cvtColor(a, cv2.COLOR_RGB2GRAY), cv2.CV_64F).var()
+
     assert lap(strong[reg]) < lap(weak[reg]) < lap(img[reg])
 
 

@@ -41,7 +41,8 @@ def test_rfc8032_sign_and_verify_byte_exact(seed, pub, msg, sig):
     key = signing.PublicKey.from_raw(bytes.fromhex(pub))
     assert key.verify(bytes.fromhex(sig), bytes.fromhex(msg))
     assert not key.verify(bytes.fromhex(sig), bytes.fromhex(msg) + b"\x00")
-    flipped = bytearray.fromhex(sig); flipped[10] ^= 0x01
+    flipped = bytearray.fromhex(sig)
+    flipped[10] ^= 0x01
     assert not key.verify(bytes(flipped), bytes.fromhex(msg))
 
 
@@ -122,14 +123,17 @@ def test_envelope_findings():
     key = signing.PublicKey.from_raw(TEST1_PUB)
     with pytest.raises(VerificationFailed, match="empty key list"):
         signing.verify_envelope(_env(), [])
-    env = _env(); env["payloadType"] = "application/json"
+    env = _env()
+    env["payloadType"] = "application/json"
     with pytest.raises(VerificationFailed) as e:
         signing.verify_envelope(env, [key])
     assert any("payloadType" in f for f in e.value.findings) and any("does not verify" in f for f in e.value.findings)
-    env = _env(); env["signatures"][0]["keyid"] = "someone-else"
+    env = _env()
+    env["signatures"][0]["keyid"] = "someone-else"
     with pytest.raises(VerificationFailed, match="keyid hint"):
         signing.verify_envelope(env, [key])
-    env = _env(); env["signatures"].append(dict(env["signatures"][0]))
+    env = _env()
+    env["signatures"].append(dict(env["signatures"][0]))
     with pytest.raises(VerificationFailed, match="second signature by key"):  # a key signs once (our policy)
         signing.verify_envelope(env, [key])
     other = signing.Signer(Ed25519PrivateKey.generate()).public_key
@@ -166,7 +170,8 @@ def test_we_verify_securesystemslib_envelope():
     env.sign(their_signer)
     got = signing.verify_envelope(env.to_dict(), [ours.public_key])
     assert got.payload == b'{"hello":"world"}' and got.key_id == ours.key_id
-    d = env.to_dict(); d["payload"] = base64.b64encode(b'{"hello":"there"}').decode()
+    d = env.to_dict()
+    d["payload"] = base64.b64encode(b'{"hello":"there"}').decode()
     with pytest.raises(VerificationFailed):
         signing.verify_envelope(d, [ours.public_key])
 

@@ -67,6 +67,7 @@ def test_dropout_keeps_id_and_predicts_along_motion(k):
     vx, vy = 6.0, -2.0  # px per frame
     drop = range(10, 10 + k)
     margins = []
+    last_kp = last_c = None  # set in every observed frame; frames 0-9 are always observed
     for f in range(30):
         truth = (80 + vx * f, 300 + vy * f)
         out = tr.update(poses_of([] if f in drop else [person(*truth)]), f / FPS)

@@ -125,7 +125,8 @@ def test_one_bit_flipped_in_every_file(base, tmp_path, name):
         for bit in (0, 5):
             pkg = tmp_path / f"p{pos}-{bit}"
             shutil.copytree(base["dir"]["path"], pkg)
-            data = bytearray(original); data[pos] ^= 1 << bit
+            data = bytearray(original)
+            data[pos] ^= 1 << bit
             (pkg / name).write_bytes(bytes(data))
             fs = findings(pkg, base["key"])
             if name == "envelope.json":
@@ -138,7 +139,8 @@ def test_bit_flips_across_the_tar(base, tmp_path):
     original = base["tar"]["path"].read_bytes()
     bad = tmp_path / "bad.tar"
     for pos in range(0, len(original), 211):
-        data = bytearray(original); data[pos] ^= 0x10
+        data = bytearray(original)
+        data[pos] ^= 0x10
         bad.write_bytes(bytes(data))
         findings(bad, base["key"])
 

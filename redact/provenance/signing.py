@@ -101,7 +101,7 @@ def jwk_thumbprint(public_raw: bytes) -> str:
     if len(public_raw) != 32:
         raise ValueError("an Ed25519 public key is 32 bytes")
     # RFC 7638 §3.2: required members only, lexicographic order, no whitespace.
-    jwk = '{"crv":"Ed25519","kty":"OKP","x":"%s"}' % b64url_nopad(public_raw)
+    jwk = f'{{"crv":"Ed25519","kty":"OKP","x":"{b64url_nopad(public_raw)}"}}'
     return b64url_nopad(hashlib.sha256(jwk.encode("ascii")).digest())
 
 
