@@ -81,7 +81,8 @@ def _crop(image: np.ndarray, box: np.ndarray) -> np.ndarray:
     c = image[cy0:cy1, cx0:cx1]
     s = CROP_HEIGHT / c.shape[0]
     cw = max(1, min(4 * CROP_HEIGHT, int(round(c.shape[1] * s))))
-    return cv2.resize(np.ascontiguousarray(c), (cw, CROP_HEIGHT), interpolation=cv2.INTER_AREA if s < 1 else cv2.INTER_LINEAR)
+    interpolation = cv2.INTER_AREA if s < 1 else cv2.INTER_LINEAR
+    return cv2.resize(np.ascontiguousarray(c), (cw, CROP_HEIGHT), interpolation=interpolation)
 
 
 def sheet_image(crops: list[np.ndarray], lines: list[str]) -> np.ndarray:

@@ -152,7 +152,8 @@ def disclosure_options(fn):
     @click.option("--organisation", default=None, help="The recipient's organisation (recorded).")
     @click.option("--purpose", default=None, help="Why it is disclosed (recorded).")
     @click.option("--request-ref", default=None, help="Reference of the request being answered (recorded).")
-    @click.option("--disclosure-date", default=None, help="Date of disclosure, YYYY-MM-DD (default: today when any disclosure field is given).")
+    @click.option("--disclosure-date", default=None,
+                  help="Date of disclosure, YYYY-MM-DD (default: today when any disclosure field is given).")
     @functools.wraps(fn)
     def wrapper(*args, recipient, organisation, purpose, request_ref, disclosure_date, **kwargs):
         fields = {"recipient": recipient, "organisation": organisation, "purpose": purpose,

@@ -328,8 +328,8 @@ def render_frame(spec: SceneSpec, index: int, background: np.ndarray | None = No
         img = cv2.GaussianBlur(img, (0, 0), spec.blur)
     if spec.noise > 0:
         rng = np.random.default_rng([spec.seed, index])
-        img = np.clip(img.astype(np.float32) + rng.normal(0.0, spec.noise, img.shape[:2])[:, :, None].astype(np.float32),
-                      0, 255)
+        noise = rng.normal(0.0, spec.noise, img.shape[:2])[:, :, None].astype(np.float32)
+        img = np.clip(img.astype(np.float32) + noise, 0, 255)
         img = np.rint(img).astype(np.uint8)
     return img, FrameTruth(index, t, rects, faces, visible, dimmed, partial)
 
@@ -355,7 +355,9 @@ def write_clip(spec: SceneSpec, path: str | Path, crf: int = 20, preset: str = "
     return truths
 
 
-def write_clip_with_audio(spec: SceneSpec, path: str | Path, tone_hz: float = 440.0, rate: int = 48000) -> list[FrameTruth]:
+def write_clip_with_audio(
+    spec: SceneSpec, path: str | Path, tone_hz: float = 440.0, rate: int = 48000
+) -> list[FrameTruth]:
     """Like write_clip, plus a mono AAC sine tone, muxed with PyAV (a source for audio-copy tests)."""
     import av  # noqa: PLC0415
 
@@ -367,8 +369,8 @@ def write_clip_with_audio(spec: SceneSpec, path: str | Path, tone_hz: float = 44
         aus = out.add_stream("aac", rate=rate, layout="mono")
         sample = 0
         for img, truth in render_scene(spec):
-            vf = av.VideoFrame.from_ndarray(np.pad(img, ((0, spec.height % 2), (0, spec.width % 2), (0, 0)), mode="edge"),
-                                            format="rgb24")
+            even = np.pad(img, ((0, spec.height % 2), (0, spec.width % 2), (0, 0)), mode="edge")
+            vf = av.VideoFrame.from_ndarray(even, format="rgb24")
             vf.pts, vf.time_base = spec.pts(truth.frame), spec.time_base
             for pk in vs.encode(vf):
                 out.mux(pk)

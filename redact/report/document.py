@@ -458,7 +458,8 @@ def _settings_section(pred: dict, rules: dict) -> str:
 def _timeline_section(contents: _Contents) -> str:
     tl = contents.timeline
     if tl is None or len(tl) == 0:
-        return '<section id="timeline"><h2>Timeline</h2><p class="warn">No per-frame quality data could be read.</p></section>'
+        return ('<section id="timeline"><h2>Timeline</h2>'
+                '<p class="warn">No per-frame quality data could be read.</p></section>')
     spans = []
     for r in contents.ranges:
         a, b = _num(r.get("t_start")), _num(r.get("t_end"))

@@ -89,7 +89,8 @@ def timeline_svg(tl: Timeline, ranges: list[tuple[float, float]], conf_line: flo
         FigureCanvasAgg(fig)
         axes = fig.subplots(3, 1, sharex=True)
         a0, a1, a2 = axes
-        a0.step(tl.t, tl.people, where="post", color="#1f4e79", lw=1.2, label="people (incl. followed without detection)")
+        a0.step(tl.t, tl.people, where="post", color="#1f4e79", lw=1.2,
+                label="people (incl. followed without detection)")
         a0.step(tl.t, tl.observed, where="post", color="#7aa6d6", lw=1.0, ls="--", label="people detected in the frame")
         a0.set_ylabel("people")
         top = np.nanmax(tl.people) if np.isfinite(tl.people).any() else 1.0

@@ -294,7 +294,8 @@ class FaceDetector:
 
     def raw(self, tensor: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """Run the model on a prepared input [1,S,S,3] float32 -> (boxes [1,A,16], logits [1,A,1])."""
-        boxes, scores = self.session.run(list(self.output_names), {self.input_name: np.ascontiguousarray(tensor, np.float32)})
+        feed = {self.input_name: np.ascontiguousarray(tensor, np.float32)}
+        boxes, scores = self.session.run(list(self.output_names), feed)
         return np.asarray(boxes), np.asarray(scores)
 
     def detect(self, image_rgb: np.ndarray) -> Faces:

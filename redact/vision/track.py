@@ -4,7 +4,8 @@ The tracker owns only the lifecycle of a track: predict, match, hit, age, retire
 - Predict: constant velocity of the box centre (px/s, from frame times, so variable frame rates
   work); the box keeps its last observed size; keypoints move with the box centre.
 - Match: Hungarian assignment (H. W. Kuhn, "The Hungarian method for the assignment problem",
-  1955; scipy.optimize.linear_sum_assignment solves the same problem) on a cost from redact.vision.costs ("iou", "oks", "iou+oks"), with pairs above `max_cost` or below
+  1955; scipy.optimize.linear_sum_assignment solves the same problem) on a cost from
+  redact.vision.costs ("iou", "oks", "iou+oks"), with pairs above `max_cost` or below
   `min_iou` gated out. Gated entries get a large finite cost, so the solver first maximises the
   number of feasible pairs, then minimises their total cost; gated pairs are then dropped.
   Tracks with fewer than `established_hits` observations are matched in a second round, on the
