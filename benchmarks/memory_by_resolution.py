@@ -20,9 +20,9 @@ import tempfile
 from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
-from throughput import scene  # noqa: E402 (the same scene as the throughput benchmark)
+from throughput import scene  # the same scene as the throughput benchmark
 
-from redact.media import synthetic as syn  # noqa: E402
+from redact.media import synthetic as syn
 
 CHILD = """
 import json, sys

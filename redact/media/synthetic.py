@@ -12,6 +12,8 @@ Ground truth is exact: the rectangle of the pasted person pixels and the face re
 per actor and frame, clipped to the frame; rectangles include any parts hidden by actors pasted
 later (paint order = actor order). Rectangles are [x0, y0, x1, y1) integer pixels, x1/y1 exclusive.
 Images are RGB uint8 [H, W, 3]. Rendering is deterministic (seeded noise, no clocks).
+OpenCV, PyAV and redact.media.video are imported in the functions that use them, so that the
+scene classes and ground truth load without them.
 """
 
 from __future__ import annotations
@@ -69,7 +71,7 @@ def load_still(name: str) -> np.ndarray:
     if name not in STILLS:
         raise InputError(f"unknown still {name!r}; choose from {sorted(STILLS)}")
     try:
-        from skimage import data  # noqa: PLC0415 (optional, test/demo only)
+        from skimage import data  # optional (a test extra), so imported on use
     except ImportError as e:
         raise InputError("scikit-image is needed for synthetic clips: pip install scikit-image") from e
     img = np.asarray(getattr(data, name)())
@@ -81,7 +83,7 @@ def load_still(name: str) -> np.ndarray:
 @lru_cache(maxsize=4)
 def _cutout(name: str) -> tuple[np.ndarray, np.ndarray, tuple[int, int, int, int]]:
     """(RGB [h,w,3], mask [h,w] bool, face rect) cropped to the person polygon's bounding box."""
-    import cv2  # noqa: PLC0415
+    import cv2
 
     still = load_still(name)
     spec = STILLS[name]
@@ -207,7 +209,7 @@ def _vertical_gradient(h: int, w: int, top, bottom) -> np.ndarray:
 
 def _hall(w: int, h: int, rng: np.random.Generator) -> np.ndarray:
     """A hall: a warm wall with doors and notice boards, a tiled floor in perspective."""
-    import cv2  # noqa: PLC0415
+    import cv2
 
     horizon = int(h * 0.62)
     img = np.empty((h, w, 3), np.float32)
@@ -254,7 +256,7 @@ def render_background(spec: SceneSpec) -> np.ndarray:
 @lru_cache(maxsize=64)
 def _scaled(name: str, height_px: int, mirror: bool) -> tuple[np.ndarray, np.ndarray, tuple[int, int, int, int]]:
     """Cut-out scaled to height_px rows: (RGB, mask, face rect within it)."""
-    import cv2  # noqa: PLC0415
+    import cv2
 
     rgb, mask, (fx0, fy0, fx1, fy1) = _cutout(name)
     s = height_px / rgb.shape[0]
@@ -323,7 +325,7 @@ def render_frame(spec: SceneSpec, index: int, background: np.ndarray | None = No
             img[dy0:dy1, dx0:dx1] = np.clip(np.rint(sub), 0, 255).astype(np.uint8)
             dimmed = visible & (rects[:, 0] < dx1) & (rects[:, 2] > dx0) & (rects[:, 1] < dy1) & (rects[:, 3] > dy0)
     if spec.blur > 0:
-        import cv2  # noqa: PLC0415
+        import cv2
 
         img = cv2.GaussianBlur(img, (0, 0), spec.blur)
     if spec.noise > 0:
@@ -344,7 +346,7 @@ def render_scene(spec: SceneSpec) -> Iterator[tuple[np.ndarray, FrameTruth]]:
 def write_clip(spec: SceneSpec, path: str | Path, crf: int = 20, preset: str = "veryfast") -> list[FrameTruth]:
     """Render the scene to an H.264 MP4 with redact.media.video.VideoWriter (byte-reproducible settings);
     returns the per-frame truth."""
-    from redact.media.video import VideoWriter  # noqa: PLC0415
+    from redact.media.video import VideoWriter
 
     truths = []
     with VideoWriter(path, spec.width, spec.height, spec.time_base, spec.fps, crf=crf, preset=preset,
@@ -359,7 +361,7 @@ def write_clip_with_audio(
     spec: SceneSpec, path: str | Path, tone_hz: float = 440.0, rate: int = 48000
 ) -> list[FrameTruth]:
     """Like write_clip, plus a mono AAC sine tone, muxed with PyAV (a source for audio-copy tests)."""
-    import av  # noqa: PLC0415
+    import av
 
     truths = []
     with av.open(str(path), mode="w", format="mp4") as out:
@@ -399,7 +401,7 @@ def write_text_file(path: str | Path) -> Path:
 
 def write_png(path: str | Path, width: int = 64, height: int = 48) -> Path:
     """A small PNG still image (an image, not a video)."""
-    from PIL import Image  # noqa: PLC0415
+    from PIL import Image
 
     p = Path(path)
     img = np.zeros((height, width, 3), np.uint8)
@@ -418,7 +420,7 @@ def write_truncated(src: str | Path, dst: str | Path, fraction: float = 0.5) -> 
 
 def write_zero_frame_video(path: str | Path, width: int = 64, height: int = 48) -> Path:
     """An AVI with a valid header and a video stream but no frames (MP4 drops empty tracks)."""
-    import av  # noqa: PLC0415
+    import av
 
     p = Path(path)
     with av.open(str(p), mode="w", format="avi") as out:

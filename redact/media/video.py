@@ -607,7 +607,7 @@ class VideoWriter:
             s.options = {**s.options, "x264-params": "mbtree=0"}
         self._stream = s
         try:
-            from av.bitstream import BitStreamFilterContext  # noqa: PLC0415
+            from av.bitstream import BitStreamFilterContext  # noqa: PLC0415 (older PyAV lacks it)
 
             self._bsf = BitStreamFilterContext("filter_units=remove_types=6", "h264")
         except (ImportError, TypeError, av.error.FFmpegError):  # older PyAV: keep the SEI
