@@ -477,7 +477,8 @@ class _Detectors:
 
     def faces_split(self, image: np.ndarray) -> tuple[tuple[Detection, ...], tuple[Detection, ...]]:
         """(faces on real pixels, faces on the redaction's own fill and figures)."""
-        real, filled = [], []
+        real: list[Detection] = []
+        filled: list[Detection] = []
         for det in self.faces_in(image):
             (filled if on_fill(image, det[0], None, self.settings) else real).append(det)
         return tuple(real), tuple(filled)
@@ -485,7 +486,8 @@ class _Detectors:
     def persons_in(self, image: np.ndarray) -> tuple[tuple[Detection, ...], tuple[Detection, ...]]:
         """(persons on real pixels, persons on the redaction fill)."""
         poses = self.poses.estimate(image)
-        real, filled = [], []
+        real: list[Detection] = []
+        filled: list[Detection] = []
         for box, score, kp in zip(poses.boxes, poses.scores, poses.keypoints):
             det = (_box(box), float(score))
             (filled if on_fill(image, box, kp, self.settings) else real).append(det)
@@ -542,7 +544,8 @@ def single_sightings(records: list[FrameAudit], settings: AuditSettings) -> tupl
     for i, rec in enumerate(records):
         near = [f for j in (i - 1, i + 1) if 0 <= j < len(records)
                 for f in records[j].faces + records[j].faces_single + records[j].faces_on_fill]
-        kept, single = [], []
+        kept: list[Detection] = []
+        single: list[Detection] = []
         for box, score in rec.faces:
             seen_again = any(iou(box, other) > settings.survive_iou for other, _ in near + list(rec.source_faces or ()))
             (kept if score >= settings.face_sure_score or seen_again else single).append((box, score))

@@ -170,7 +170,7 @@ class QualityMonitor:
             a = np.asarray(image)
             usable = a.ndim == 3 and a.shape[2] == 3 and a.dtype == np.uint8 and a.size > 0
         if usable:
-            g = analysis_grey(image)
+            g = analysis_grey(image)  # type: ignore[arg-type]  # usable implies image is not None
             lm, ls, sh = float(g.mean(dtype=np.float64)), float(g.std(dtype=np.float64)), sharpness(g)
         people = observed = predicted = 0
         settled_observed = settled_coasting = explained_count = 0

@@ -53,11 +53,11 @@ def window_tensor(image: np.ndarray, win: Window) -> np.ndarray:
         sx1, sy1 = min(w, int(math.ceil(win.x1))), min(h, int(math.ceil(win.y1)))
         small = cv2.resize(image[sy0:sy1, sx0:sx1], None, fx=k, fy=k, interpolation=cv2.INTER_AREA)
         # small pixel u shows source x = sx0 + u·(sx1-sx0)/small_w; the canvas shows (x - x0)·k.
-        m = np.float32([[k * (sx1 - sx0) / small.shape[1], 0, (sx0 - win.x0) * k],
+        m: np.ndarray = np.float32([[k * (sx1 - sx0) / small.shape[1], 0, (sx0 - win.x0) * k],  # type: ignore[arg-type, assignment]  # numpy types np.float32() as scalar-only
                         [0, k * (sy1 - sy0) / small.shape[0], (sy0 - win.y0) * k]])
         src = small
     else:
-        m = np.float32([[k, 0, -win.x0 * k], [0, k, -win.y0 * k]])
+        m = np.float32([[k, 0, -win.x0 * k], [0, k, -win.y0 * k]])  # type: ignore[arg-type, assignment]  # numpy types np.float32() as scalar-only
         src = image
     canvas = cv2.warpAffine(src, m, (win.in_w, win.in_h), flags=cv2.INTER_LINEAR,
                             borderMode=cv2.BORDER_CONSTANT, borderValue=(PAD_VALUE,) * 3)

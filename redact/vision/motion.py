@@ -173,7 +173,7 @@ class MotionDetector:
         bx, by = int(math.ceil(abs(dx))) + 1, int(math.ceil(abs(dy))) + 1
         if 2 * bx >= grey.shape[1] or 2 * by >= grey.shape[0]:
             return float(dx), float(dy)  # slid by half the view or more: nothing left to compare
-        m = np.float32([[1, 0, -dx], [0, 1, -dy]])
+        m: np.ndarray = np.float32([[1, 0, -dx], [0, 1, -dy]])  # type: ignore[arg-type, assignment]  # numpy types np.float32() as scalar-only
         undone = cv2.warpAffine(grey, m, grey.shape[::-1], borderMode=cv2.BORDER_REPLICATE)
         inner = (slice(by, -by), slice(bx, -bx))
         before = _differs(grey[inner], background[inner])
@@ -206,7 +206,7 @@ class MotionDetector:
                 self._restart()
                 state = "camera_moved"
             elif shift != (0.0, 0.0):
-                m = np.float32([[1, 0, -shift[0]], [0, 1, -shift[1]]])
+                m: np.ndarray = np.float32([[1, 0, -shift[0]], [0, 1, -shift[1]]])  # type: ignore[arg-type, assignment]  # numpy types np.float32() as scalar-only
                 grey = cv2.warpAffine(grey, m, grey.shape[::-1], borderMode=cv2.BORDER_REPLICATE)
         assert self._model is not None
         first = self._learned == 0

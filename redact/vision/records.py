@@ -72,8 +72,8 @@ class Tracks:
     keypoints: np.ndarray
     observed: np.ndarray
     misses: np.ndarray
-    margin: np.ndarray = field(default=None)  # type: ignore[assignment]
-    hits: np.ndarray = field(default=None)  # type: ignore[assignment]
+    margin: np.ndarray = field(default=None)  # type: ignore[arg-type]  # None: filled in by __post_init__
+    hits: np.ndarray = field(default=None)  # type: ignore[arg-type]  # None: filled in by __post_init__
 
     def __post_init__(self) -> None:
         ids = _check("ids", self.ids, (None,), np.int64)

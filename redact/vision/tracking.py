@@ -15,7 +15,7 @@ caller runs the loop.
 
 from __future__ import annotations
 
-from collections.abc import Iterable, Iterator
+from collections.abc import Generator, Iterable, Iterator
 from dataclasses import dataclass, field, replace
 from typing import TYPE_CHECKING, Protocol
 
@@ -183,7 +183,7 @@ class TrackingPass:
         enhance = bool(scene is not None and scene.light.dim and self.ids.scene.light.enhance)
         return self.finder.find(frame.image, plan, enhance), plan, len(schedule.sweep), enhance
 
-    def run(self, frames: Iterable[Frame], ahead: int | None = None) -> Iterator[TrackedFrame]:
+    def run(self, frames: Iterable[Frame], ahead: int | None = None) -> Generator[TrackedFrame, None, None]:
         """Each frame with its tracks, in order; `ahead` bounds the frames taken ahead of inference
         (media.stages.map_ahead; the pipeline shrinks it for large frames)."""
         detected = map_ahead(self._detect, self._scan(frames), self.workers, ahead)
