@@ -10,6 +10,7 @@ import os
 import re
 import sys
 from pathlib import Path
+from typing import cast
 
 import click
 
@@ -103,7 +104,9 @@ def frame_check(proof_file: Path, package: Path | None, trusted_keys: tuple[Path
         if root_hex is None:
             raise InputError("the package's signed statement has no source.frames_root")
         size = len(digests)
-    findings = merkle.check_frame_proof(proof, root_hex, size, bytes.fromhex(digest_hex) if digest_hex else None)
+    # root_hex is --root, or the package's frames_root (exactly one of the two is given)
+    digest = bytes.fromhex(digest_hex) if digest_hex else None
+    findings = merkle.check_frame_proof(proof, cast(str, root_hex), size, digest)
     if as_json:
         echo_json({"valid": not findings, "frame": proof.frame, "tree_size": proof.size,
                    "root": proof.root.hex(), "findings": findings})

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from typing import Any
+
 import click
 
 from redact.cli import main
@@ -21,7 +23,7 @@ def models_command(as_json: bool) -> None:
     """
     from redact.vision.models import check_model, list_models
 
-    rows = []
+    rows: list[dict[str, Any]] = []
     for m in list_models():
         try:
             status = check_model(m)

@@ -18,6 +18,7 @@ over 2 × 2 pixels. BT.601: Kr 0.299, Kb 0.114; BT.709: Kr 0.2126, Kb 0.0722.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import TypeGuard
 
 import cv2
 import numpy as np
@@ -67,7 +68,7 @@ def colour_of(width: int, height: int, matrix: int | None, primaries: int | None
         base = Colour("bt601", int(matrix), SMPTE170M, SMPTE170M)
     else:
         base = BT709 if is_hd(width, height) else BT601
-    def tagged(v):
+    def tagged(v: int | None) -> TypeGuard[int]:
         return v is not None and v not in (0, UNSPECIFIED)
 
     return Colour(base.matrix, base.matrix_code, int(primaries) if tagged(primaries) else base.primaries,

@@ -127,7 +127,7 @@ class Actor:
             if t <= b[0]:
                 u = (t - a[0]) / (b[0] - a[0])
                 return tuple(a[i] + u * (b[i] - a[i]) for i in (1, 2, 3))  # type: ignore[return-value]
-        return keys[-1][1:]  # type: ignore[return-value]
+        return keys[-1][1:]
 
 
 @dataclass(frozen=True)
@@ -185,8 +185,9 @@ class FrameTruth:
     person_rects: np.ndarray
     face_rects: np.ndarray
     visible: np.ndarray
-    dimmed: np.ndarray = field(default=None)  # type: ignore[assignment]
-    partial: np.ndarray = field(default=None)  # type: ignore[assignment]
+    # None is replaced by all-False arrays in __post_init__
+    dimmed: np.ndarray = field(default=None)  # type: ignore[arg-type]
+    partial: np.ndarray = field(default=None)  # type: ignore[arg-type]
 
     def __post_init__(self) -> None:
         a = np.asarray(self.visible).shape[0]
@@ -227,7 +228,8 @@ def _hall(w: int, h: int, rng: np.random.Generator) -> np.ndarray:
     vx = w // 2  # tile lines converge on a vanishing point above the horizon
     for k in range(-12, 13):
         cv2.line(img, (vx + int(k * 40 * s), horizon), (vx + int(k * 160 * s), h), (70, 65, 60), 1)
-    y, step = horizon, 8 * s
+    y: float = horizon
+    step = 8 * s
     while y < h:
         cv2.line(img, (0, int(y)), (w, int(y)), (70, 65, 60), 1)
         step *= 1.35

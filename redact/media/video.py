@@ -29,6 +29,7 @@ from collections.abc import Iterator
 from dataclasses import dataclass
 from fractions import Fraction
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 
@@ -379,8 +380,9 @@ class VideoReader:
         self.stopped_early: str | None = None
         self.frames_read = 0
         self.corrupt_frames = 0
-        self._container = None
-        self._stream = None
+        # PyAV container and stream while open (av is imported on use, so typed loosely)
+        self._container: Any = None
+        self._stream: Any = None
         self._hasher: _FileHasher | None = None
         self._iterated = False
         self._finished = False
@@ -580,9 +582,10 @@ class VideoWriter:
         self.reproducible = bool(reproducible)
         self.frames_written = 0
         self._last_pts: int | None = None
-        self._container = None
-        self._stream = None
-        self._bsf = None
+        # PyAV container, stream and bitstream filter while open (av is imported on use)
+        self._container: Any = None
+        self._stream: Any = None
+        self._bsf: Any = None
 
     def __enter__(self) -> VideoWriter:
         av = _av()

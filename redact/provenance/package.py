@@ -19,8 +19,9 @@ import stat
 import tarfile
 from collections.abc import Callable, Iterator
 from contextlib import contextmanager
+from functools import partial
 from pathlib import Path
-from typing import BinaryIO
+from typing import BinaryIO, cast
 
 from redact import fsio, jsonio
 from redact.errors import OutputError, PackageError
@@ -110,8 +111,8 @@ class DirectoryReader(PackageReader):
             return
         if depth and not entries:
             self.problems.append(f"{prefix.rstrip('/')}: unexpected empty directory")
-        for e in entries:
-            name = prefix + e.name
+        for entry in entries:
+            name = prefix + entry.name
             if len(self.files) + len(self.problems) > MAX_ENTRIES:
                 self.problems.append(f"more than {MAX_ENTRIES} entries; stopped listing")
                 return
@@ -119,14 +120,14 @@ class DirectoryReader(PackageReader):
             if why:
                 self.problems.append(f"{name!r}: unsafe name ({why})")
                 continue
-            st = e.stat(follow_symlinks=False)
+            st = entry.stat(follow_symlinks=False)
             if stat.S_ISLNK(st.st_mode):
                 self.problems.append(f"{name}: symlink (links are not allowed in a package)")
             elif stat.S_ISDIR(st.st_mode):
                 if depth + 1 >= MAX_DEPTH:
                     self.problems.append(f"{name}: directories nested too deep")
                 else:
-                    self._walk(Path(e.path), name + "/", depth + 1)
+                    self._walk(Path(entry.path), name + "/", depth + 1)
             elif stat.S_ISREG(st.st_mode):
                 self.files[name] = st.st_size
             else:
@@ -193,7 +194,7 @@ class TarReader(PackageReader):
         f = self._tar.extractfile(self._members[name])
         if f is None:
             raise PackageError(f"{name}: cannot be read from the archive")
-        return f
+        return cast(BinaryIO, f)
 
     def canonical_problem(self) -> str | None:
         """None when the .tar is byte-identical to the archive this tool writes for these members.
@@ -205,7 +206,8 @@ class TarReader(PackageReader):
             return None
         sink = _HashSink()
         names = sorted(self.files)
-        _write_tar(sink, [(n, self.files[n], (lambda n=n: self.open(n))) for n in names])
+        # tarfile only calls write() on its output
+        _write_tar(cast(BinaryIO, sink), [(n, self.files[n], partial(self.open, n)) for n in names])
         with open(self.path, "rb") as f:
             digest, _ = sha256_stream(f)
         if digest != sink.hexdigest():
@@ -234,6 +236,10 @@ class _HashSink(io.RawIOBase):
 
     def hexdigest(self) -> str:
         return self._h.hexdigest()
+
+
+def _file_opener(path: Path) -> Callable[[], BinaryIO]:
+    return lambda: open(path, "rb")
 
 
 def _write_tar(out: BinaryIO, items: list[tuple[str, int, Callable[[], BinaryIO]]]) -> None:
@@ -342,7 +348,7 @@ def write_package(staging_dir: Path, final_path: Path, predicate: Predicate, sig
         names = sorted(set(reader.files) | {ENVELOPE})
         sizes = {n: (staging / n).stat().st_size for n in names}
         with fsio.atomic_file(final) as out:  # never replaces an existing file
-            _write_tar(out, [(n, sizes[n], (lambda n=n: open(staging / n, "rb"))) for n in names])
+            _write_tar(out, [(n, sizes[n], _file_opener(staging / n)) for n in names])
         shutil.rmtree(staging)
     else:
         fsio.rename_new(staging, final)

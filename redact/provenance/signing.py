@@ -67,7 +67,7 @@ def base64_alphabet(text: str) -> str:
     return "standard" if _STANDARD.fullmatch(text) else "url-safe"
 
 
-def b64decode_any(text: str) -> bytes:
+def b64decode_any(text: object) -> bytes:
     """Decode RFC 4648 base64 in the standard or the URL-safe alphabet, padded and canonical.
 
     ValueError names the rule broken: characters outside the alphabets (§3.3), both alphabets in

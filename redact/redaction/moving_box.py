@@ -94,7 +94,8 @@ def parse_moving_box(v, path: str, info) -> MovingBox:
         raise _err(f"{path}.keyframes", "expected a non-empty list of {frame, box}")
     if len(kfs) > MAX_KEYFRAMES:
         raise _err(f"{path}.keyframes", f"{len(kfs)} entries; at most {MAX_KEYFRAMES} are allowed")
-    frames, boxes = [], []
+    frames: list[int] = []
+    boxes: list[list[float]] = []
     for i, kf in enumerate(kfs):
         p = f"{path}.keyframes[{i}]"
         if not isinstance(kf, dict) or set(kf) != {"frame", "box"}:

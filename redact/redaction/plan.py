@@ -284,14 +284,14 @@ class Plan:
                 self._hits.add(e.path, frame)
         mask = None
         area_entries: list[tuple[str, str | None]] = []
-        for e in self.areas:
-            if e.when is None or e.when.contains(frame, t):
+        for a in self.areas:
+            if a.when is None or a.when.contains(frame, t):
                 if mask is None:
                     mask = np.zeros((h, w), bool)
-                x0, y0, x1, y1 = e.rect
-                mask[y0:y1, x0:x1] |= e.crop
-                area_entries.append((e.path, e.label))
-                self._hits.add(e.path, frame)
+                x0, y0, x1, y1 = a.rect
+                mask[y0:y1, x0:x1] |= a.crop
+                area_entries.append((a.path, a.label))
+                self._hits.add(a.path, frame)
         for m in self.moving:
             box = m.box_at(frame)
             if box is None:

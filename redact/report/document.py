@@ -92,6 +92,11 @@ def _obj(d: Any, key: str) -> dict:
     return v if isinstance(v, dict) else {}
 
 
+def _list(d: dict, key: str) -> list:
+    v = d.get(key)
+    return v if isinstance(v, list) else []
+
+
 def _seconds(x: Any) -> str:
     v = _num(x)
     return "—" if math.isnan(v) else f"{v:.2f} s"
@@ -198,7 +203,7 @@ def _read_review(contents: PackageContents, problems: list[str]) -> tuple[list[d
     for r in items if isinstance(items, list) else []:
         if not isinstance(r, dict):
             continue
-        reasons = r.get("reasons") if isinstance(r.get("reasons"), list) else []
+        reasons = _list(r, "reasons")
         frames = r["frames"] if isinstance(r.get("frames"), list) and len(r["frames"]) == 2 else \
             [r.get("frame_start"), r.get("frame_end")]
         seconds = r["seconds"] if isinstance(r.get("seconds"), list) and len(r["seconds"]) == 2 else \
@@ -254,7 +259,7 @@ def _video_is_the_signed_copy(video: Path, statement: dict, verified: bool) -> s
         return "the file given as --video is the ORIGINAL source, not the redacted copy"
     if verified:
         return None
-    subjects = statement.get("subject") if isinstance(statement.get("subject"), list) else []
+    subjects = _list(statement, "subject")
     for s in subjects:
         if isinstance(s, dict) and _obj(s, "annotations").get("role") == "redacted-video" \
                 and _obj(s, "digest").get("sha256") == digest:
@@ -547,7 +552,7 @@ def name_html(value: Any) -> str:
 
 
 def _files_section(statement: dict) -> str:
-    subjects = statement.get("subject") if isinstance(statement.get("subject"), list) else []
+    subjects = _list(statement, "subject")
     rows = "".join(f'<tr><td class="name">{name_html(s.get("name"))}</td>'
                    f'<td>{esc(_obj(s, "annotations").get("role"))}</td>'
                    f'<td>{esc(_obj(s, "annotations").get("bytes"))}</td>'
@@ -602,6 +607,7 @@ def make_report(package: Path, trusted_keys: list, video: Path | None = None,
         raise InputError("no trusted public key given; pass at least one --trusted-key NAME.public.pem")
     _check_is_package(package)
     result: VerifiedPackage | None = None
+    findings: tuple[str, ...]
     try:
         result = verify_package(package, trusted_keys, source=source, video=video)
         verified, key_id, checked, findings = True, result.key_id, result.checked, ()

@@ -11,6 +11,7 @@ from __future__ import annotations
 import threading
 from collections import OrderedDict
 from pathlib import Path
+from typing import Any
 
 import cv2
 import numpy as np
@@ -38,9 +39,10 @@ class FrameSource:
         finally:
             container.close()
         self.pts = pts
-        self._container = None
-        self._stream = None
-        self._iter = None
+        # PyAV container, stream and decoded-frame iterator while open
+        self._container: Any = None
+        self._stream: Any = None
+        self._iter: Any = None
         self._next = -1
 
     def __len__(self) -> int:

@@ -23,6 +23,7 @@ import tempfile
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, replace
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 from redact import __version__, jsonio
 from redact.errors import InputError, OutputError, PackageError
@@ -30,6 +31,9 @@ from redact.provenance.log import TransformLog, utc_now
 from redact.provenance.package import ENVELOPE, ENVELOPE_LIMIT, FRAMES, LOG, REVIEW, open_package, write_package
 from redact.provenance.predicate import Disclosure, ParentRecord, Predicate, ToolRecord, thaw
 from redact.review.state import RangeReview, ReviewState
+
+if TYPE_CHECKING:  # annotations only: nothing more is imported at run time
+    from redact.provenance.contents import VerifiedPackage
 
 VIDEO = "redacted.mp4"
 PACKAGE = "package"
@@ -45,7 +49,7 @@ class LoadedOutput:
     folder: Path
     video: Path
     package: Path
-    verified: object  # redact.provenance.contents.VerifiedPackage
+    verified: VerifiedPackage
     files: dict[str, bytes]
 
     @property

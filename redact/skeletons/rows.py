@@ -43,7 +43,7 @@ def row_of(frame: int, pts: int | None, t: float, tracks: Tracks, status: str = 
     cs = None if centres is None else np.asarray(centres, np.float64).reshape(-1, 2).tolist()
     for i, tid in enumerate(tracks.ids.tolist()):
         people.append(fmt.Person(int(tid), fmt.OBSERVED if tracks.observed[i] else fmt.PREDICTED, scores[i],
-                                 tuple(boxes[i]), tuple(tuple(k) for k in kps[i]),  # type: ignore[arg-type]
+                                 tuple(boxes[i]), tuple(tuple(k) for k in kps[i]),
                                  None if cs is None else (cs[i][0], cs[i][1])))
     return fmt.Row(int(frame), None if pts is None else int(pts), float(t), status, tuple(people), units,
                    coord_decimals)
