@@ -77,12 +77,12 @@ import cv2
 import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
-import recall_common as rc  # noqa: E402
+import recall_common as rc
 
-from redact.media.video import VideoReader, VideoWriter  # noqa: E402
-from redact.redaction.quality import luma  # noqa: E402
-from redact.vision.models import DEFAULT_POSE_MODEL, FLOAT_POSE_MODEL, get_model, open_session  # noqa: E402
-from redact.vision.pose import STRIDE, PoseEstimator, PoseSettings, decode, input_size_for, nms  # noqa: E402
+from redact.media.video import VideoReader, VideoWriter
+from redact.redaction.quality import luma
+from redact.vision.models import DEFAULT_POSE_MODEL, FLOAT_POSE_MODEL, get_model, open_session
+from redact.vision.pose import STRIDE, PoseEstimator, PoseSettings, decode, input_size_for, nms
 
 BANDS = (35, 45, 55, 65, 75, 90, 110, 130)
 MAX_CROP_SIDE = 1280

@@ -43,11 +43,11 @@ import cv2
 import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
-import recall_common as rc  # noqa: E402
+import recall_common as rc
 
-from redact.media.synthetic import Actor, SceneSpec, render_background, render_frame  # noqa: E402
-from redact.vision.models import DEFAULT_POSE_MODEL, FLOAT_POSE_MODEL, get_model, open_session  # noqa: E402
-from redact.vision.pose import PAD_VALUE, STRIDE, PoseEstimator, PoseSettings, decode  # noqa: E402
+from redact.media.synthetic import Actor, SceneSpec, render_background, render_frame
+from redact.vision.models import DEFAULT_POSE_MODEL, FLOAT_POSE_MODEL, get_model, open_session
+from redact.vision.pose import PAD_VALUE, STRIDE, PoseEstimator, PoseSettings, decode
 
 EDGES = (15, 20, 25, 30, 35, 40, 45, 50, 60, 70, 80, 90, 100, 115, 130, 145, 160, 200, 250, 300, 400)
 SCALES = (0.2, 0.25, 0.3, 0.35, 0.4, 0.45, 0.5, 0.6, 0.7, 0.85, 1.0, 1.25, 1.5, 1.75, 2.0, 2.5, 3.0)
