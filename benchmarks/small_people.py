@@ -3,7 +3,7 @@
 For a generated clip of several walkers 40–80 px tall at 720p (the same scene scaled to 576p and
 1080p), blurred, noised and H.264-compressed like CCTV (scikit-image stills: astronaut() public
 domain, camera() CC0), this prints in one run, per resolution:
-  (a)  end-to-end frames/s of process_video with the default settings (whole frame every 4th
+  (a)  end-to-end frames/s of process_video with the default settings (whole frame every 8th
        frame, windows around tracks and moving blobs, sweep, motion net);
   (a0) the same with the search of earlier releases (whole frame on every frame at the model's
        640 long side, no windows, no motion net): the old defaults;

@@ -105,6 +105,8 @@ def test_every_reference_person_is_obscured(vtest_run):
             ys = np.clip(np.round(pts[:, 1]).astype(int), 0, h - 1)
             if not m[ys, xs].all() or m[hy0:hy1, hx0:hx1].mean() < 0.95:
                 bad_heads.append((i, (hx0, hy0, hx1, hy1)))
+    print(f"vtest.avi 0-399: {covered} of {n} reference people at least 95 % obscured; "
+          f"{heads - len(bad_heads)} of {heads} heads wholly obscured")  # shown with pytest -s
     assert n >= 500  # the clip has 3-9 walkers in every frame
     assert covered / n >= 0.99, (covered, n, missed[:20])
     assert heads >= 300 and not bad_heads, (heads, bad_heads[:20])

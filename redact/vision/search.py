@@ -41,7 +41,7 @@ class SearchSettings:
     """
 
     windows: CropSettings = field(default_factory=CropSettings)
-    full_every: int = 4
+    full_every: int = 8
     sweep_seconds: float = 30.0
 
     def __post_init__(self) -> None:
