@@ -434,7 +434,7 @@ def run_batch(input_dir: str | Path, out_dir: str | Path, key: BatchKey | Signer
         raise InputError(f"no video files under {input_dir} (extensions: {' '.join(sorted(VIDEO_EXTENSIONS))})")
     client, versions = connect_cluster(scheduler) if scheduler else (None, None)  # before OUT exists
     try:
-        created = _make_folder(out_dir)
+        created = fsio.make_folder(out_dir)
         try:
             with fsio.lock_folder(out_dir) as lock:  # a second batch into OUT stops here
                 notices = fsio.staging_notices(out_dir, *fsio.stale_staging(out_dir, STAGING_PREFIX,
@@ -449,19 +449,6 @@ def run_batch(input_dir: str | Path, out_dir: str | Path, key: BatchKey | Signer
         if client is not None:
             client.close()
     return replace(result, notices=notices, workers=versions)
-
-
-def _make_folder(out_dir: Path) -> bool:
-    """Create OUT (and its parents); True when this call created it."""
-    try:
-        out_dir.mkdir(parents=True)
-        return True
-    except FileExistsError:
-        if not out_dir.is_dir():
-            raise OutputError(f"--out {out_dir} exists and is not a folder") from None
-        return False
-    except OSError as e:
-        raise OutputError(f"cannot create {out_dir}: {e.strerror or e}") from None
 
 
 def _batch(input_dir, out_dir, videos, key, settings, workers, client, versions, progress) -> BatchResult:

@@ -170,6 +170,21 @@ def write_error(target: str | Path, e: OSError) -> OutputError:
     return OutputError(f"cannot write {target}: {e.strerror or e}")
 
 
+def make_folder(out_dir: str | Path) -> bool:
+    """Create the output folder OUT (and its parents); True when this call created it (so a
+    failed run may remove it again), False when it was there already."""
+    out_dir = Path(out_dir)
+    try:
+        out_dir.mkdir(parents=True)
+        return True
+    except FileExistsError:
+        if not out_dir.is_dir():
+            raise OutputError(f"--out {out_dir} exists and is not a folder") from None
+        return False
+    except OSError as e:
+        raise write_error(out_dir, e) from None
+
+
 def free_bytes(folder: str | Path) -> int:
     """Bytes an unprivileged user may still write in `folder`'s file system (statvfs f_bavail)."""
     return shutil.disk_usage(folder).free

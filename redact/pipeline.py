@@ -24,7 +24,7 @@ import numpy as np
 from redact import __version__, fsio
 from redact.errors import InputError, NoSpaceError, OutputError, RedactError
 from redact.finishing import FrameFinisher, FrameSinks, FrameWork, LookBack, MotionCover, RunStats
-from redact.formats.tracks_json import TrackRecord, encode_tracks
+from redact.formats.tracks_json import encode_tracks
 from redact.media.stages import WriteBehind, depth_for, read_ahead
 from redact.provenance import package
 from redact.provenance.log import TransformLog, utc_now
@@ -213,7 +213,7 @@ def _check_paths(source: Path, out_dir: Path, archive: bool) -> tuple[Path, Path
         if target.resolve() == src:
             raise OutputError(f"output {target} would overwrite the input; choose another --out")
     if out_dir.exists() and not out_dir.is_dir():
-        raise OutputError(f"--out {out_dir} exists and is not a directory")
+        raise OutputError(f"--out {out_dir} exists and is not a folder")
     for target in (video, pkg):
         if os.path.lexists(target):
             raise OutputError(f"{target} already exists; choose a new --out (outputs are never overwritten)")
@@ -280,7 +280,7 @@ def process_video(source: str | Path, out_dir: str | Path, signer: Signer,
         estimator = PoseEstimator.default(settings.pose, settings.model_threads)  # hash check before output
     _check_memory(source, info, settings)
 
-    created = _make_folder(out_dir)
+    created = fsio.make_folder(out_dir)
     try:
         with fsio.lock_folder(out_dir) as lock:  # before any work: a second run into OUT stops here
             video_final, pkg_final = _check_paths(source, out_dir, settings.archive)  # again, under the lock
@@ -311,19 +311,6 @@ def process_video(source: str | Path, out_dir: str | Path, signer: Signer,
                 out_dir.rmdir()  # only when empty: a folder this run made and left nothing in
         raise
     return replace(result, notices=notices)
-
-
-def _make_folder(out_dir: Path) -> bool:
-    """Create OUT (and its parents); True when this call created it."""
-    try:
-        out_dir.mkdir(parents=True)
-        return True
-    except FileExistsError:
-        if not out_dir.is_dir():
-            raise OutputError(f"--out {out_dir} exists and is not a directory") from None
-        return False
-    except OSError as e:
-        raise fsio.write_error(out_dir, e) from None
 
 
 def _inside(name, folder: Path) -> bool:
@@ -656,8 +643,7 @@ def _motion_counts(stats: RunStats, settings: ProcessSettings) -> MotionCounts:
 
 def _tracks_json(summaries: list[TrackSummary]) -> bytes:
     """tracks.json from the tracker's summaries (written by redact.formats.tracks_json)."""
-    return encode_tracks(TrackRecord(s.id, s.first_frame, s.last_frame, s.frames_observed, s.frames_predicted,
-                                     s.first_t, s.last_t) for s in summaries)
+    return encode_tracks(summaries)
 
 
 def _apply_privacy(pkg_dir: Path, privacy: PrivacyOptions, info: VideoInfo, log: TransformLog) -> None:

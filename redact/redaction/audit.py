@@ -373,15 +373,23 @@ def _box(b) -> Box:
 
 # ---------------------------------------------------------------- persons on the fill
 
-def fill_share(image: np.ndarray, box, grey: int, tolerance: int) -> float:
-    """Share of the pixels inside box (x1,y1,x2,y2) whose three channels all lie within
-    `tolerance` of `grey`; 0.0 for a box with no pixels inside the image [H,W,3]."""
+def _box_pixels(image: np.ndarray, box) -> np.ndarray | None:
+    """The pixels [h, w, 3] int16 of image [H,W,3] inside box (x1,y1,x2,y2, rounded outwards and
+    clipped to the image), or None when no pixel lies inside."""
     h, w = image.shape[:2]
     x1, y1 = max(0, int(np.floor(box[0]))), max(0, int(np.floor(box[1])))
     x2, y2 = min(w, int(np.ceil(box[2]))), min(h, int(np.ceil(box[3])))
     if x2 <= x1 or y2 <= y1:
+        return None
+    return image[y1:y2, x1:x2].astype(np.int16)
+
+
+def fill_share(image: np.ndarray, box, grey: int, tolerance: int) -> float:
+    """Share of the pixels inside box (x1,y1,x2,y2) whose three channels all lie within
+    `tolerance` of `grey`; 0.0 for a box with no pixels inside the image [H,W,3]."""
+    crop = _box_pixels(image, box)
+    if crop is None:
         return 0.0
-    crop = image[y1:y2, x1:x2].astype(np.int16)
     return float((np.abs(crop - grey) <= tolerance).all(axis=2).mean())
 
 
@@ -406,12 +414,9 @@ def drawing_share(image: np.ndarray, box, fill: int, figure: int, tolerance: int
     """Share of the pixels inside box that could belong to our drawing: neutral grey (channels
     within 2 × tolerance of each other) between fill − 3 × tolerance and figure + 3 × tolerance
     (the fill, the figures' grey and their anti-aliased and codec-smeared blends)."""
-    h, w = image.shape[:2]
-    x1, y1 = max(0, int(np.floor(box[0]))), max(0, int(np.floor(box[1])))
-    x2, y2 = min(w, int(np.ceil(box[2]))), min(h, int(np.ceil(box[3])))
-    if x2 <= x1 or y2 <= y1:
+    crop = _box_pixels(image, box)
+    if crop is None:
         return 0.0
-    crop = image[y1:y2, x1:x2].astype(np.int16)
     lo, hi = min(fill, figure) - 3 * tolerance, max(fill, figure) + 3 * tolerance
     level = crop.mean(axis=2)
     neutral = (crop.max(axis=2) - crop.min(axis=2)) <= 2 * tolerance

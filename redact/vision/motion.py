@@ -138,6 +138,7 @@ class MotionDetector:
         self._model: cv2.BackgroundSubtractorMOG2 | None = None
         self._learned = 0
         self._size: tuple[int, int] | None = None
+        self._window: np.ndarray | None = None  # phase-correlation window for the analysis size
 
     def _restart(self) -> None:
         history = max(2, int(round(self.settings.history_seconds * self.fps)))
@@ -155,8 +156,10 @@ class MotionDetector:
             return None
         return cv2.cvtColor(background, cv2.COLOR_BGR2GRAY) if background.ndim == 3 else background
 
-    def _camera_shift(self, grey: np.ndarray) -> tuple[float, float]:
-        """Translation (analysis pixels) of the camera since the background was learned, or (0, 0).
+    def _camera_shift(self, grey: np.ndarray) -> tuple[tuple[float, float], np.ndarray | None]:
+        """Translation (analysis pixels) of the camera since the background was learned, or (0, 0),
+        and the frame with that translation undone (None when there is none to undo, or when the
+        view slid by half of itself or more: nothing is left to compare).
 
         Phase correlation (cv2.phaseCorrelate) gives the dominant translation, which may be that
         of a large walker rather than of the camera. A shift is believed only when it explains the
@@ -165,22 +168,23 @@ class MotionDetector:
         slides; people walking over a still view fail this and the camera is taken as still."""
         background = self._background(grey)
         if background is None:
-            return 0.0, 0.0
-        window = cv2.createHanningWindow(grey.shape[::-1], cv2.CV_32F)
-        (dx, dy), _ = cv2.phaseCorrelate(background.astype(np.float32), grey.astype(np.float32), window)
+            return (0.0, 0.0), None
+        if self._window is None or self._window.shape != grey.shape:
+            self._window = cv2.createHanningWindow(grey.shape[::-1], cv2.CV_32F)
+        (dx, dy), _ = cv2.phaseCorrelate(background.astype(np.float32), grey.astype(np.float32), self._window)
         if math.hypot(dx, dy) < 0.25:
-            return 0.0, 0.0
+            return (0.0, 0.0), None
         bx, by = int(math.ceil(abs(dx))) + 1, int(math.ceil(abs(dy))) + 1
         if 2 * bx >= grey.shape[1] or 2 * by >= grey.shape[0]:
-            return float(dx), float(dy)  # slid by half the view or more: nothing left to compare
+            return (float(dx), float(dy)), None
         m: np.ndarray = np.float32([[1, 0, -dx], [0, 1, -dy]])  # type: ignore[arg-type, assignment]  # numpy types np.float32() as scalar-only
         undone = cv2.warpAffine(grey, m, grey.shape[::-1], borderMode=cv2.BORDER_REPLICATE)
         inner = (slice(by, -by), slice(bx, -bx))
         before = _differs(grey[inner], background[inner])
         after = _differs(undone[inner], background[inner])
         if before < SHIFT_EVIDENCE or after > 0.5 * before:
-            return 0.0, 0.0
-        return float(dx), float(dy)
+            return (0.0, 0.0), None
+        return (float(dx), float(dy)), undone
 
     def observe(self, image: np.ndarray) -> Foreground:
         """The moving parts of one RGB (or grey) frame; call once per frame, in frame order."""
@@ -200,14 +204,12 @@ class MotionDetector:
         state = "ok"
         rate = -1.0  # MOG2's own rate, 1/history once warmed up
         if self._learned >= 2:
-            shift = self._camera_shift(grey)
-            limit = s.shake * grey.shape[1]
-            if math.hypot(*shift) > limit:
+            shift, undone = self._camera_shift(grey)
+            if math.hypot(*shift) > s.shake * grey.shape[1]:
                 self._restart()
                 state = "camera_moved"
-            elif shift != (0.0, 0.0):
-                m: np.ndarray = np.float32([[1, 0, -shift[0]], [0, 1, -shift[1]]])  # type: ignore[arg-type, assignment]  # numpy types np.float32() as scalar-only
-                grey = cv2.warpAffine(grey, m, grey.shape[::-1], borderMode=cv2.BORDER_REPLICATE)
+            elif undone is not None:
+                grey = undone  # camera shake, undone
         assert self._model is not None
         first = self._learned == 0
         raw = self._model.apply(grey, learningRate=rate)

@@ -47,6 +47,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from redact.errors import InputError
+from redact.formats.tracks_json import TrackRecord
 from redact.vision.costs import COST_NAMES, iou_matrix, make_cost
 from redact.vision.records import Poses, Tracks
 from redact.vision.skeleton import NUM_KEYPOINTS
@@ -126,18 +127,10 @@ class TrackerConfig:
         return min(self.base_margin + self.margin_growth * frames_unseen, self.max_margin)
 
 
-@dataclass(frozen=True)
-class TrackSummary:
-    """One track over the whole run, for tracks.json. Frames are update-call numbers (or the
-    frame indices the caller passed); first/last are the first and last frames it was reported."""
-
-    id: int
-    first_frame: int
-    last_frame: int
-    frames_observed: int
-    frames_predicted: int
-    first_t: float
-    last_t: float
+#: One track over the whole run: the tracks.json record itself (redact.formats.tracks_json). Frames
+#: are update-call numbers (or the frame indices the caller passed); first/last are the first and
+#: last frames it was reported.
+TrackSummary = TrackRecord
 
 
 class _Track:
