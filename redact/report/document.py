@@ -386,8 +386,8 @@ def _human_review_section(pred: dict) -> str:
     rec = _obj(pred, "human_review")
     if not rec:
         return ('<div class="status open" id="human-review"><p class="big">Review: not reviewed</p><p>No person has '
-                "recorded a review of this copy (`redact review`). Check every flagged range and watch the whole "
-                "redacted video before anything is disclosed.</p></div>")
+                "recorded a review of this copy (<code>redact review</code>). Check every flagged range and watch "
+                "the whole redacted video before anything is disclosed.</p></div>")
     ok = rec.get("ranges_checked") == rec.get("ranges_total") and rec.get("whole_video_watched") is True
     return (f'<div class="status {"ok" if ok else "open"}" id="human-review"><p class="big">Review: '
             f"{esc(summary_line(rec))}</p><p>Reviewed at {esc(rec.get('reviewed_at'))} (UTC); frames shown on "
